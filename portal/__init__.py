@@ -1,0 +1,5 @@
+"""The Cairn web portal (Django project)."""
+
+from portal.celery import app as celery_app
+
+__all__ = ("celery_app",)

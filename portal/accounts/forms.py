@@ -1,0 +1,42 @@
+from django import forms
+from django.contrib.auth.forms import AuthenticationForm
+
+from portal.accounts import throttle
+from portal.audit.events import record
+
+
+class ThrottledLoginForm(AuthenticationForm):
+    """Log-in that refuses to check passwords after too many recent failures."""
+
+    error_messages = {
+        **AuthenticationForm.error_messages,
+        "throttled": (
+            "Too many failed log-ins for this account or from this address. Wait %(minutes)d "
+            "minutes and try again, or ask an operator to reset your password."
+        ),
+    }
+
+    def clean(self):
+        from django.conf import settings
+
+        username = self.cleaned_data.get("username") or ""
+        address = throttle.client_address(self.request)
+        if throttle.is_throttled(username, address):
+            record("login.refused", summary=f"log-in for {username!r} refused: too many failures",
+                   params={"username": username, "address": address})
+            raise forms.ValidationError(
+                self.error_messages["throttled"], code="throttled",
+                params={"minutes": max(1, round(settings.LOGIN_FAILURE_WINDOW_S / 60))},
+            )
+        try:
+            return super().clean()
+        except forms.ValidationError:
+            throttle.note_failure(username, address)
+            record("login.failed", summary=f"failed log-in for {username!r}",
+                   params={"username": username, "address": address})
+            raise
+
+
+class TokenForm(forms.Form):
+    name = forms.CharField(max_length=100, label="What is the token for?",
+                           help_text="For example: lab server nightly upload.")

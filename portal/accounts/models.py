@@ -1,0 +1,131 @@
+"""Sites (labs), studies, who belongs where with which role, and API tokens."""
+
+import hashlib
+import secrets
+
+from django.conf import settings
+from django.core.validators import validate_slug
+from django.db import models
+from django.utils import timezone
+
+
+class Study(models.Model):
+    """A consortium study; sites take part in one or more studies."""
+
+    slug = models.SlugField(unique=True, validators=[validate_slug])
+    name = models.CharField(max_length=200)
+    created_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        ordering = ["slug"]
+        verbose_name_plural = "studies"
+
+    def __str__(self):
+        return self.name
+
+
+class Site(models.Model):
+    """A lab that records and uploads EEG sessions."""
+
+    slug = models.SlugField(unique=True, validators=[validate_slug])
+    name = models.CharField(max_length=200)
+    studies = models.ManyToManyField(Study, related_name="sites", blank=True)
+    created_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        ordering = ["slug"]
+
+    def __str__(self):
+        return self.name
+
+
+class Role(models.TextChoices):
+    DATA_MANAGER = "data_manager", "site data manager"
+    ANALYST = "analyst", "site analyst"
+    STUDY_LEAD = "study_lead", "study lead"
+    AUDITOR = "auditor", "auditor"
+    OPERATOR = "operator", "operator"
+
+
+#: Roles whose members see every site of the studies their site takes part in.
+STUDY_WIDE_ROLES = frozenset({Role.STUDY_LEAD, Role.AUDITOR})
+
+
+class Membership(models.Model):
+    """A person's role at a site. A person may hold several roles at several sites."""
+
+    user = models.ForeignKey(
+        settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="memberships"
+    )
+    site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="memberships")
+    role = models.CharField(max_length=20, choices=Role.choices)
+    created_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        constraints = [
+            models.UniqueConstraint(fields=["user", "site", "role"], name="one_role_once_per_site")
+        ]
+        ordering = ["site__slug", "user__username"]
+
+    def __str__(self):
+        return f"{self.user} — {self.get_role_display()} at {self.site.slug}"
+
+
+def hash_token(raw):
+    return hashlib.sha256(raw.encode("utf-8")).hexdigest()
+
+
+class ApiToken(models.Model):
+    """A token for scripts and lab servers; only its sha256 is kept, the raw value shown once."""
+
+    PREFIX = "cairn_"
+
+    user = models.ForeignKey(
+        settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="api_tokens"
+    )
+    name = models.CharField(max_length=100, help_text="What the token is for, e.g. 'lab server'.")
+    lookup = models.CharField(max_length=12, unique=True, editable=False)
+    digest = models.CharField(max_length=64, editable=False)
+    created_at = models.DateTimeField(default=timezone.now)
+    last_used_at = models.DateTimeField(null=True, blank=True)
+    revoked_at = models.DateTimeField(null=True, blank=True)
+
+    class Meta:
+        ordering = ["-created_at"]
+
+    def __str__(self):
+        return f"{self.name} ({self.PREFIX}{self.lookup}…)"
+
+    @classmethod
+    def issue(cls, user, name):
+        """Create a token; returns (token, raw value). The raw value is not kept anywhere."""
+        lookup = secrets.token_hex(6)
+        secret = secrets.token_urlsafe(32)
+        raw = f"{cls.PREFIX}{lookup}_{secret}"
+        token = cls.objects.create(user=user, name=name, lookup=lookup, digest=hash_token(raw))
+        return token, raw
+
+    @classmethod
+    def authenticate(cls, raw):
+        """The active token for a raw value, or None."""
+        if not raw or not raw.startswith(cls.PREFIX):
+            return None
+        lookup = raw[len(cls.PREFIX):].split("_", 1)[0]
+        token = cls.objects.select_related("user").filter(lookup=lookup).first()
+        if token is None or token.revoked_at is not None or not token.user.is_active:
+            return None
+        if not secrets.compare_digest(token.digest, hash_token(raw)):
+            return None
+        cls.objects.filter(pk=token.pk).update(last_used_at=timezone.now())
+        return token
+
+
+class LoginFailure(models.Model):
+    """One failed log-in, kept to throttle guessing per account and per address."""
+
+    username = models.CharField(max_length=150, db_index=True)
+    address = models.GenericIPAddressField(null=True, blank=True, db_index=True)
+    at = models.DateTimeField(default=timezone.now, db_index=True)
+
+    class Meta:
+        ordering = ["-at"]

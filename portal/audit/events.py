@@ -1,0 +1,63 @@
+"""Writing audit events. Every state change in Cairn goes through :func:`record`."""
+
+import socket
+
+from portal.audit.models import ActorKind, Event
+from portal.audit.versions import code_version, library_versions
+
+
+def actor_snapshot(user):
+    """The user's name and roles at this moment, kept beside the (nullable) link."""
+    if user is None or not getattr(user, "is_authenticated", False):
+        return {}
+    roles = [
+        {"site": m.site.slug, "role": m.role}
+        for m in user.memberships.select_related("site").order_by("site__slug", "role")
+    ]
+    return {"username": user.get_username(), "superuser": user.is_superuser, "roles": roles}
+
+
+def describe(obj):
+    """(type, id) of a model instance for an event's target."""
+    if obj is None:
+        return "", ""
+    return obj._meta.label_lower, str(obj.pk)
+
+
+def record(
+    verb, *, actor=None, actor_kind=None, token=None, target=None, study=None, site=None,
+    summary="", params=None, inputs=None, outputs=None, worker=False,
+):
+    """Append one event. ``actor`` is a user (or None for the system or a worker)."""
+    if actor_kind is None:
+        if worker:
+            actor_kind = ActorKind.WORKER
+        elif token is not None:
+            actor_kind = ActorKind.TOKEN
+        elif actor is not None and getattr(actor, "is_authenticated", False):
+            actor_kind = ActorKind.USER
+        else:
+            actor_kind = ActorKind.SYSTEM
+    snapshot = actor_snapshot(actor)
+    if token is not None:
+        snapshot["token"] = str(token)
+    if worker:
+        snapshot["host"] = socket.gethostname()
+    target_type, target_id = describe(target)
+    version = dict(code_version())
+    version["libraries"] = library_versions()
+    return Event.objects.create(
+        verb=verb,
+        actor_kind=actor_kind,
+        actor=actor if getattr(actor, "is_authenticated", False) else None,
+        actor_snapshot=snapshot,
+        study=study,
+        site=site,
+        target_type=target_type,
+        target_id=target_id,
+        summary=summary[:300],
+        params=params or {},
+        inputs=inputs or [],
+        outputs=outputs or [],
+        code_version=version,
+    )

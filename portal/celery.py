@@ -1,0 +1,43 @@
+"""The Celery application. Worker processes limit numeric threads before any library loads."""
+
+import os
+
+from celery import Celery
+from celery.signals import worker_process_init
+
+from workers.runtime import limit_numeric_threads
+
+os.environ.setdefault("DJANGO_SETTINGS_MODULE", "portal.settings")
+# Before numpy/scipy/numba load anywhere in this process (web or worker).
+limit_numeric_threads()
+
+app = Celery("cairn")
+app.config_from_object("django.conf:settings", namespace="CELERY")
+app.conf.update(
+    task_acks_late=True,
+    task_reject_on_worker_lost=True,
+    worker_prefetch_multiplier=1,
+    task_default_queue="compute",
+    task_serializer="json",
+    accept_content=["json"],
+    result_backend=None,
+    task_ignore_result=True,
+    broker_connection_retry_on_startup=True,
+    worker_hijack_root_logger=False,
+    beat_schedule_filename=os.environ.get("CAIRN_BEAT_SCHEDULE", "var/beat-schedule"),
+)
+app.autodiscover_tasks(["workers.tasks"], related_name="jobs")
+
+
+@worker_process_init.connect
+def _limit_threads(**_):
+    limit_numeric_threads()
+
+
+@app.on_after_configure.connect
+def _schedule_sweeper(sender, **_):
+    from django.conf import settings
+
+    sender.add_periodic_task(
+        settings.JOB_SWEEP_EVERY_S, sender.signature("cairn.sweep_jobs"), name="sweep jobs"
+    )

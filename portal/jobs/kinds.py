@@ -1,0 +1,38 @@
+"""The kinds of background work, where each runs, and which function does it.
+
+The web process reads this table without importing any handler, so it never loads the
+scientific libraries; a worker imports a handler only when it runs a job of that kind.
+"""
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class JobKind:
+    name: str
+    label: str
+    handler: str  # dotted path "module:function"
+    queue: str = "compute"
+
+
+KINDS = {
+    kind.name: kind
+    for kind in (
+        JobKind("probe", "worker check", "workers.tasks.probe:run_probe", queue="intake"),
+        JobKind(
+            "upload.validate", "validate and index an upload",
+            "workers.tasks.intake:validate_upload", queue="intake",
+        ),
+    )
+}
+
+QUEUES = ("intake", "compute")
+
+
+def get_kind(name):
+    try:
+        return KINDS[name]
+    except KeyError:
+        raise ValueError(
+            f"unknown job kind {name!r}; known kinds: {', '.join(sorted(KINDS))}"
+        ) from None

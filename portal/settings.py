@@ -1,0 +1,206 @@
+"""Cairn settings. Everything comes from environment variables with safe defaults.
+
+Unset, the portal runs on the embedded default: an SQLite file and kombu's filesystem broker
+under ``var/``. Deployments and CI set ``DATABASE_URL`` (PostgreSQL) and ``CELERY_BROKER_URL``
+(Redis).
+"""
+
+import os
+from pathlib import Path
+
+import dj_database_url
+from django.core.exceptions import ImproperlyConfigured
+
+BASE_DIR = Path(__file__).resolve().parent.parent
+VAR_DIR = Path(os.environ.get("CAIRN_VAR_DIR", BASE_DIR / "var")).resolve()
+
+
+def env_bool(name, default=False):
+    raw = os.environ.get(name)
+    if raw is None or raw == "":
+        return default
+    value = raw.strip().lower()
+    if value in {"1", "true", "yes", "on"}:
+        return True
+    if value in {"0", "false", "no", "off"}:
+        return False
+    raise ImproperlyConfigured(f"{name} must be true or false, got {raw!r}")
+
+
+def env_list(name, default=""):
+    return [item.strip() for item in os.environ.get(name, default).split(",") if item.strip()]
+
+
+def env_float(name, default):
+    raw = os.environ.get(name)
+    if raw is None or raw == "":
+        return default
+    try:
+        return float(raw)
+    except ValueError as exc:
+        raise ImproperlyConfigured(f"{name} must be a number, got {raw!r}") from exc
+
+
+DEBUG = env_bool("DEBUG", False)
+
+SECRET_KEY = os.environ.get("SECRET_KEY", "")
+if not SECRET_KEY:
+    if not DEBUG and not env_bool("CAIRN_EMBEDDED", True):
+        raise ImproperlyConfigured("SECRET_KEY must be set in a deployment (CAIRN_EMBEDDED=false)")
+    # Embedded default: a key kept in var/ so sessions survive restarts of the demo.
+    VAR_DIR.mkdir(parents=True, exist_ok=True)
+    key_file = VAR_DIR / "secret_key"
+    if not key_file.exists():
+        from django.core.management.utils import get_random_secret_key
+
+        key_file.write_text(get_random_secret_key() + get_random_secret_key())
+        key_file.chmod(0o600)
+    SECRET_KEY = key_file.read_text().strip()
+
+ALLOWED_HOSTS = env_list("ALLOWED_HOSTS", "127.0.0.1,localhost")
+CSRF_TRUSTED_ORIGINS = env_list("CSRF_TRUSTED_ORIGINS")
+
+INSTALLED_APPS = [
+    "django.contrib.admin",
+    "django.contrib.auth",
+    "django.contrib.contenttypes",
+    "django.contrib.sessions",
+    "django.contrib.messages",
+    "django.contrib.staticfiles",
+    "portal.accounts",
+    "portal.audit",
+    "portal.jobs",
+    "portal.studies",
+    "portal.datasets",
+    "portal.dashboard",
+]
+
+MIDDLEWARE = [
+    "django.middleware.security.SecurityMiddleware",
+    "whitenoise.middleware.WhiteNoiseMiddleware",
+    "django.contrib.sessions.middleware.SessionMiddleware",
+    "django.middleware.common.CommonMiddleware",
+    "django.middleware.csrf.CsrfViewMiddleware",
+    "django.contrib.auth.middleware.AuthenticationMiddleware",
+    "portal.accounts.tokens.ApiTokenMiddleware",
+    "django.contrib.messages.middleware.MessageMiddleware",
+    "django.middleware.clickjacking.XFrameOptionsMiddleware",
+]
+
+ROOT_URLCONF = "portal.urls"
+WSGI_APPLICATION = "portal.wsgi.application"
+
+TEMPLATES = [
+    {
+        "BACKEND": "django.template.backends.django.DjangoTemplates",
+        "DIRS": [BASE_DIR / "portal" / "templates"],
+        "APP_DIRS": True,
+        "OPTIONS": {
+            "context_processors": [
+                "django.template.context_processors.request",
+                "django.contrib.auth.context_processors.auth",
+                "django.contrib.messages.context_processors.messages",
+            ],
+        },
+    },
+]
+
+DATABASE_URL = os.environ.get("DATABASE_URL", "")
+if DATABASE_URL:
+    DATABASES = {"default": dj_database_url.parse(DATABASE_URL, conn_max_age=60)}
+else:
+    VAR_DIR.mkdir(parents=True, exist_ok=True)
+    DATABASES = {
+        "default": {
+            "ENGINE": "django.db.backends.sqlite3",
+            "NAME": VAR_DIR / "cairn.sqlite3",
+            # Web and worker processes share the file: wait for locks instead of failing.
+            "OPTIONS": {"timeout": 30, "transaction_mode": "IMMEDIATE", "init_command": (
+                "PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL;"
+            )},
+        }
+    }
+DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
+
+AUTH_PASSWORD_VALIDATORS = [
+    {"NAME": "django.contrib.auth.password_validation.UserAttributeSimilarityValidator"},
+    {"NAME": "django.contrib.auth.password_validation.MinimumLengthValidator",
+     "OPTIONS": {"min_length": 10}},
+    {"NAME": "django.contrib.auth.password_validation.CommonPasswordValidator"},
+    {"NAME": "django.contrib.auth.password_validation.NumericPasswordValidator"},
+]
+LOGIN_URL = "accounts:login"
+LOGIN_REDIRECT_URL = "dashboard:home"
+LOGOUT_REDIRECT_URL = "accounts:login"
+
+LANGUAGE_CODE = "en-gb"
+TIME_ZONE = os.environ.get("CAIRN_TIME_ZONE", "UTC")
+USE_I18N = True
+USE_TZ = True
+
+STATIC_URL = "static/"
+STATIC_ROOT = Path(os.environ.get("CAIRN_STATIC_ROOT", VAR_DIR / "static"))
+STATICFILES_DIRS = [BASE_DIR / "portal" / "static"]
+STORAGES = {
+    "default": {"BACKEND": "django.core.files.storage.FileSystemStorage"},
+    "staticfiles": {"BACKEND": "whitenoise.storage.CompressedStaticFilesStorage"},
+}
+
+# Blobs (uploaded files, derived tables, models): a local folder, content-addressed.
+BLOB_ROOT = Path(os.environ.get("CAIRN_BLOB_ROOT", VAR_DIR / "blobs")).resolve()
+STAGING_ROOT = Path(os.environ.get("CAIRN_STAGING_ROOT", VAR_DIR / "staging")).resolve()
+
+# Security: the secure defaults hold unless DEBUG; HTTPS settings follow CAIRN_HTTPS.
+HTTPS = env_bool("CAIRN_HTTPS", not DEBUG and bool(DATABASE_URL))
+SESSION_COOKIE_SECURE = HTTPS
+CSRF_COOKIE_SECURE = HTTPS
+SECURE_SSL_REDIRECT = HTTPS and env_bool("CAIRN_SSL_REDIRECT", True)
+SECURE_HSTS_SECONDS = int(env_float("CAIRN_HSTS_SECONDS", 31536000 if HTTPS else 0))
+SECURE_HSTS_INCLUDE_SUBDOMAINS = HTTPS
+SECURE_HSTS_PRELOAD = HTTPS
+SECURE_PROXY_SSL_HEADER = (
+    ("HTTP_X_FORWARDED_PROTO", "https") if env_bool("CAIRN_BEHIND_PROXY", False) else None
+)
+SECURE_CONTENT_TYPE_NOSNIFF = True
+SECURE_REFERRER_POLICY = "same-origin"
+X_FRAME_OPTIONS = "DENY"
+SESSION_COOKIE_HTTPONLY = True
+SESSION_COOKIE_AGE = 60 * 60 * 12
+
+# Log-in throttling: failures counted per account and per address within a window.
+LOGIN_FAILURE_WINDOW_S = env_float("CAIRN_LOGIN_FAILURE_WINDOW_S", 15 * 60)
+LOGIN_MAX_FAILURES_PER_ACCOUNT = int(env_float("CAIRN_LOGIN_MAX_FAILURES_PER_ACCOUNT", 5))
+LOGIN_MAX_FAILURES_PER_ADDRESS = int(env_float("CAIRN_LOGIN_MAX_FAILURES_PER_ADDRESS", 20))
+
+# Celery: Redis in deployment, kombu's filesystem transport under var/ when unset.
+CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")
+if CELERY_BROKER_URL:
+    CELERY_BROKER_TRANSPORT_OPTIONS = {}
+else:
+    BROKER_DIR = VAR_DIR / "broker"
+    for sub in ("queue", "processed", "control"):
+        (BROKER_DIR / sub).mkdir(parents=True, exist_ok=True)
+    CELERY_BROKER_URL = "filesystem://"
+    CELERY_BROKER_TRANSPORT_OPTIONS = {
+        "data_folder_in": str(BROKER_DIR / "queue"),
+        "data_folder_out": str(BROKER_DIR / "queue"),
+        "processed_folder": str(BROKER_DIR / "processed"),
+        "control_folder": str(BROKER_DIR / "control"),
+        "store_processed": False,
+    }
+CELERY_TASK_ALWAYS_EAGER = False
+
+# Jobs: the lease a running job holds and renews, and when the sweeper acts.
+JOB_LEASE_S = env_float("CAIRN_JOB_LEASE_S", 60)
+JOB_HEARTBEAT_S = env_float("CAIRN_JOB_HEARTBEAT_S", JOB_LEASE_S / 4)
+JOB_RESEND_AFTER_S = env_float("CAIRN_JOB_RESEND_AFTER_S", 120)
+JOB_SWEEP_EVERY_S = env_float("CAIRN_JOB_SWEEP_EVERY_S", 30)
+JOB_MAX_ATTEMPTS = int(env_float("CAIRN_JOB_MAX_ATTEMPTS", 3))
+
+LOGGING = {
+    "version": 1,
+    "disable_existing_loggers": False,
+    "handlers": {"console": {"class": "logging.StreamHandler"}},
+    "root": {"handlers": ["console"], "level": os.environ.get("CAIRN_LOG_LEVEL", "INFO")},
+    "loggers": {"django.db.backends": {"level": "WARNING"}},
+}

@@ -1,0 +1,89 @@
+from django import forms
+
+from portal.studies.protocol import (
+    QC_FIELDS,
+    ProtocolError,
+    format_bands,
+    format_levels,
+    parse_bands,
+    parse_levels,
+    parse_names,
+    validate_protocol,
+)
+
+
+class ProtocolForm(forms.Form):
+    """The protocol as a person edits it: names as lists, levels and bands one per line."""
+
+    tasks = forms.CharField(help_text="BIDS task names, separated by commas, e.g. rest, task.")
+    conditions = forms.CharField(help_text="Condition names, separated by commas.")
+    condition_column = forms.CharField(help_text="Column of *_scans.tsv naming the condition.")
+    rating_column = forms.CharField(help_text="Column of *_scans.tsv holding the rating.")
+    rating_min = forms.IntegerField(label="Rating scale minimum")
+    rating_max = forms.IntegerField(label="Rating scale maximum")
+    levels = forms.CharField(widget=forms.Textarea(attrs={"rows": 4}),
+                             help_text="One level per line: name min-max, e.g. 'low 1-3'.")
+    l_freq_hz = forms.FloatField(label="Pass-band low edge (Hz)")
+    h_freq_hz = forms.FloatField(label="Pass-band high edge (Hz)")
+    bands = forms.CharField(widget=forms.Textarea(attrs={"rows": 6}),
+                            help_text="One band per line: name low_Hz high_Hz, e.g. 'alpha 8 13'.")
+    note = forms.CharField(required=False, max_length=300, label="Why this change?")
+
+    def __init__(self, *args, protocol, **kwargs):
+        super().__init__(*args, **kwargs)
+        for key, label in QC_FIELDS.items():
+            self.fields[f"qc_{key}"] = forms.FloatField(label=label[0].upper() + label[1:])
+        if not self.is_bound:
+            self.initial = self.initial_from(protocol)
+
+    @staticmethod
+    def initial_from(p):
+        initial = {
+            "tasks": ", ".join(p["tasks"]), "conditions": ", ".join(p["conditions"]),
+            "condition_column": p["condition_column"],
+            "rating_column": p["rating_scale"]["column"],
+            "rating_min": p["rating_scale"]["min"], "rating_max": p["rating_scale"]["max"],
+            "levels": format_levels(p["rating_scale"]["levels"]),
+            "l_freq_hz": p["passband"]["l_freq_hz"], "h_freq_hz": p["passband"]["h_freq_hz"],
+            "bands": format_bands(p["bands"]),
+        }
+        initial.update({f"qc_{k}": v for k, v in p["qc"].items()})
+        return initial
+
+    def clean(self):
+        data = super().clean()
+        if self.errors:
+            return data
+        try:
+            levels = parse_levels(data["levels"])
+        except ValueError as exc:
+            self.add_error("levels", str(exc))
+            return data
+        try:
+            bands = parse_bands(data["bands"])
+        except ValueError as exc:
+            self.add_error("bands", str(exc))
+            return data
+        protocol = {
+            "tasks": parse_names(data["tasks"]),
+            "conditions": parse_names(data["conditions"]),
+            "condition_column": data["condition_column"].strip(),
+            "rating_scale": {
+                "name": "workload rating", "column": data["rating_column"].strip(),
+                "min": data["rating_min"], "max": data["rating_max"], "levels": levels,
+            },
+            "passband": {"l_freq_hz": data["l_freq_hz"], "h_freq_hz": data["h_freq_hz"]},
+            "bands": bands,
+            "qc": {k: data[f"qc_{k}"] for k in QC_FIELDS},
+        }
+        field_for = {"rating_scale": "levels", "passband": "h_freq_hz"}
+        try:
+            validate_protocol(protocol)
+        except ProtocolError as exc:
+            for key, messages in exc.errors.items():
+                name = key.replace("qc.", "qc_", 1) if key.startswith("qc.") else field_for.get(
+                    key, key)
+                for message in messages:
+                    self.add_error(name if name in self.fields else None, message)
+        data["protocol"] = protocol
+        return data

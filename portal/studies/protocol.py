@@ -1,0 +1,201 @@
+"""A study's protocol as plain data: defaults, parsing from the edit form, and validation.
+
+Defaults are common practice in EEG workload research (no source): a 9-point workload rating
+binned 1–3 low, 4–6 moderate, 7–9 high; bands delta 0.5–4, theta 4–8, alpha 8–13, beta 13–30
+and gamma 30–40 Hz inside a 0.5–40 Hz analysis pass-band.
+"""
+
+import copy
+
+DEFAULT_PROTOCOL = {
+    "tasks": ["rest", "task"],
+    "conditions": ["rest", "low", "moderate", "high"],
+    "rating_scale": {
+        "name": "workload rating",
+        "column": "workload_rating",
+        "min": 1,
+        "max": 9,
+        "levels": [
+            {"name": "low", "min": 1, "max": 3},
+            {"name": "moderate", "min": 4, "max": 6},
+            {"name": "high", "min": 7, "max": 9},
+        ],
+    },
+    # The column of each session's *_scans.tsv that names a recording's condition.
+    "condition_column": "difficulty",
+    "passband": {"l_freq_hz": 0.5, "h_freq_hz": 40.0},
+    "bands": [
+        {"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
+        {"name": "theta", "l_freq_hz": 4.0, "h_freq_hz": 8.0},
+        {"name": "alpha", "l_freq_hz": 8.0, "h_freq_hz": 13.0},
+        {"name": "beta", "l_freq_hz": 13.0, "h_freq_hz": 30.0},
+        {"name": "gamma", "l_freq_hz": 30.0, "h_freq_hz": 40.0},
+    ],
+    # Our starting thresholds; each study lead sets their own.
+    "qc": {
+        "bad_channel_share_review": 0.10,
+        "bad_channel_share_fail": 0.25,
+        "rejected_time_share_review": 0.15,
+        "rejected_time_share_fail": 0.40,
+        "min_duration_s": 60.0,
+        "min_sfreq_hz": 100.0,
+    },
+}
+
+QC_FIELDS = {
+    "bad_channel_share_review": "share of bad channels that asks for a review (0–1)",
+    "bad_channel_share_fail": "share of bad channels that fails a recording (0–1)",
+    "rejected_time_share_review": "share of rejected time that asks for a review (0–1)",
+    "rejected_time_share_fail": "share of rejected time that fails a recording (0–1)",
+    "min_duration_s": "shortest usable recording (s)",
+    "min_sfreq_hz": "lowest usable sampling rate (Hz)",
+}
+
+
+def default_protocol():
+    return copy.deepcopy(DEFAULT_PROTOCOL)
+
+
+class ProtocolError(ValueError):
+    """Problems with a protocol; ``errors`` maps a field name to messages."""
+
+    def __init__(self, errors):
+        self.errors = errors
+        super().__init__("; ".join(f"{k}: {m}" for k, ms in errors.items() for m in ms))
+
+
+def validate_protocol(protocol):
+    """Raise ProtocolError naming each field that is wrong and what is expected."""
+    errors = {}
+
+    def add(field, message):
+        errors.setdefault(field, []).append(message)
+
+    for field in ("tasks", "conditions"):
+        names = protocol.get(field) or []
+        if not names:
+            add(field, "list at least one name")
+        if len(set(names)) != len(names):
+            add(field, "each name may appear only once")
+        for name in names:
+            if not name.replace("-", "").replace("_", "").isalnum():
+                add(field, f"{name!r}: use letters, digits, '-' or '_' only")
+
+    for field, value in (("condition_column", protocol.get("condition_column")),
+                         ("rating_scale", protocol.get("rating_scale", {}).get("column"))):
+        if not isinstance(value, str) or not value.replace("_", "").isalnum():
+            add(field, "name the scans.tsv column (letters, digits, '_')")
+
+    scale = protocol.get("rating_scale", {})
+    lo, hi = scale.get("min"), scale.get("max")
+    if not (isinstance(lo, int) and isinstance(hi, int) and lo < hi):
+        add("rating_scale", "the scale needs whole-number minimum and maximum, minimum < maximum")
+    else:
+        levels = sorted(scale.get("levels", []), key=lambda lv: lv["min"])
+        if not levels:
+            add("rating_scale", "define at least one level, e.g. 'low 1-3'")
+        expected = lo
+        for level in levels:
+            if level["min"] > level["max"]:
+                add("rating_scale",
+                    f"level {level['name']!r}: {level['min']} is above {level['max']}")
+            if level["min"] != expected:
+                add(
+                    "rating_scale",
+                    f"levels must cover {lo}–{hi} without gaps or overlaps: level "
+                    f"{level['name']!r} starts at {level['min']}, expected {expected}",
+                )
+            expected = level["max"] + 1
+        if levels and expected != hi + 1:
+            add("rating_scale", f"the last level must end at the scale maximum {hi}")
+
+    band = protocol.get("passband", {})
+    l_pass, h_pass = band.get("l_freq_hz"), band.get("h_freq_hz")
+    if not (isinstance(l_pass, (int, float)) and isinstance(h_pass, (int, float))
+            and 0 <= l_pass < h_pass):
+        add("passband", "give 0 ≤ low edge < high edge, in Hz")
+        l_pass = h_pass = None
+
+    bands = protocol.get("bands", [])
+    if not bands:
+        add("bands", "define at least one band, e.g. 'alpha 8 13'")
+    names = [b["name"] for b in bands]
+    if len(set(names)) != len(names):
+        add("bands", "each band name may appear only once")
+    previous_high = None
+    for b in sorted(bands, key=lambda b: b["l_freq_hz"]):
+        if not b["l_freq_hz"] < b["h_freq_hz"]:
+            add("bands", f"band {b['name']!r}: low edge {b['l_freq_hz']} Hz must be below "
+                         f"high edge {b['h_freq_hz']} Hz")
+        if l_pass is not None and (b["l_freq_hz"] < l_pass or b["h_freq_hz"] > h_pass):
+            add("bands", f"band {b['name']!r} ({b['l_freq_hz']}–{b['h_freq_hz']} Hz) lies outside "
+                         f"the pass-band {l_pass}–{h_pass} Hz")
+        if previous_high is not None and b["l_freq_hz"] < previous_high:
+            add("bands", f"band {b['name']!r} overlaps the band below it")
+        previous_high = b["h_freq_hz"]
+
+    qc = protocol.get("qc", {})
+    for key in QC_FIELDS:
+        value = qc.get(key)
+        if not isinstance(value, (int, float)) or value < 0:
+            add(f"qc.{key}", "give a number ≥ 0")
+        elif key.endswith(("_review", "_fail")) and value > 1:
+            add(f"qc.{key}", "a share lies between 0 and 1")
+    for what in ("bad_channel_share", "rejected_time_share"):
+        review, fail = qc.get(f"{what}_review"), qc.get(f"{what}_fail")
+        if isinstance(review, (int, float)) and isinstance(fail, (int, float)) and review > fail:
+            add(f"qc.{what}_review", "the review threshold must not be above the fail threshold")
+    if errors:
+        raise ProtocolError(errors)
+    return protocol
+
+
+def parse_names(text):
+    return [part.strip() for part in text.replace("\n", ",").split(",") if part.strip()]
+
+
+def parse_levels(text):
+    """Lines like 'low 1-3' → level dicts; raises ValueError naming the line."""
+    levels = []
+    for number, line in enumerate(text.splitlines(), start=1):
+        if not line.strip():
+            continue
+        try:
+            name, span = line.split()
+            lo, hi = (int(x) for x in span.split("-"))
+        except ValueError:
+            raise ValueError(f"line {number}: {line.strip()!r} — expected 'name min-max', "
+                             "e.g. 'low 1-3'") from None
+        levels.append({"name": name, "min": lo, "max": hi})
+    return levels
+
+
+def parse_bands(text):
+    """Lines like 'alpha 8 13' (Hz) → band dicts; raises ValueError naming the line."""
+    bands = []
+    for number, line in enumerate(text.splitlines(), start=1):
+        if not line.strip():
+            continue
+        try:
+            name, lo, hi = line.split()
+            bands.append({"name": name, "l_freq_hz": float(lo), "h_freq_hz": float(hi)})
+        except ValueError:
+            raise ValueError(f"line {number}: {line.strip()!r} — expected 'name low_Hz high_Hz', "
+                             "e.g. 'alpha 8 13'") from None
+    return bands
+
+
+def format_levels(levels):
+    return "\n".join(f"{lv['name']} {lv['min']}-{lv['max']}" for lv in levels)
+
+
+def format_bands(bands):
+    return "\n".join(f"{b['name']} {b['l_freq_hz']:g} {b['h_freq_hz']:g}" for b in bands)
+
+
+def level_for_rating(protocol, rating):
+    """The level name a rating falls in, or None outside the scale."""
+    for level in protocol["rating_scale"]["levels"]:
+        if level["min"] <= rating <= level["max"]:
+            return level["name"]
+    return None

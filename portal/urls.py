@@ -1,0 +1,13 @@
+from django.contrib import admin
+from django.urls import include, path
+
+urlpatterns = [
+    path("", include("portal.dashboard.urls")),
+    path("account/", include("portal.accounts.urls")),
+    path("studies/", include("portal.studies.urls")),
+    path("data/", include("portal.datasets.urls")),
+    path("jobs/", include("portal.jobs.urls")),
+    path("audit/", include("portal.audit.urls")),
+    path("api/v1/", include("portal.api_urls")),
+    path("operator/", admin.site.urls),
+]

@@ -1,0 +1,1 @@
+"""Cairn's computation: pure scientific modules plus the Celery glue in ``workers.tasks``."""

@@ -1,0 +1,1 @@
+"""Reading and checking BIDS-organised EEG datasets."""

@@ -1,0 +1,1 @@
+"""Celery glue: load inputs, call a pure function from ``workers``, store outputs."""
