@@ -141,6 +141,9 @@ USE_TZ = True
 STATIC_URL = "static/"
 STATIC_ROOT = Path(os.environ.get("CAIRN_STATIC_ROOT", VAR_DIR / "static"))
 STATICFILES_DIRS = [BASE_DIR / "portal" / "static"]
+STATIC_ROOT.mkdir(parents=True, exist_ok=True)
+# Serve straight from the source folders unless collectstatic was run for a deployment.
+WHITENOISE_USE_FINDERS = env_bool("CAIRN_STATIC_FROM_SOURCE", not DATABASE_URL or DEBUG)
 STORAGES = {
     "default": {"BACKEND": "django.core.files.storage.FileSystemStorage"},
     "staticfiles": {"BACKEND": "whitenoise.storage.CompressedStaticFilesStorage"},

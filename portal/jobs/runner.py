@@ -84,6 +84,12 @@ class Heartbeat(threading.Thread):
         self.join(timeout=10)
 
 
+def _refresh_connection():
+    """Drop a stale database connection between jobs (never inside a transaction)."""
+    if not db_connection.in_atomic_block:
+        close_old_connections()
+
+
 def load_handler(kind):
     module_name, func_name = get_kind(kind).handler.split(":")
     return getattr(importlib.import_module(module_name), func_name)
@@ -91,7 +97,7 @@ def load_handler(kind):
 
 def run(job_id):
     """Run one job if it can be claimed. Returns a short word for the log."""
-    close_old_connections()
+    _refresh_connection()
     token = services.claim(job_id, worker_id())
     if token is None:
         return "skipped"
@@ -112,7 +118,7 @@ def run(job_id):
         services.fail(job_id, token, str(exc))
         return "failed"
     except TRANSIENT_ERRORS:
-        close_old_connections()
+        _refresh_connection()
         services.release(job_id, token)
         raise
     except Exception as exc:

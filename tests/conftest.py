@@ -1,0 +1,65 @@
+"""Shared fixtures: people and sites for permission tests, and the small demo consortium."""
+
+import pytest
+
+
+@pytest.fixture(autouse=True)
+def _test_settings(settings):
+    """The test client speaks plain HTTP; in-process tests never wait on a heartbeat
+    (integration tests give their workers their own timing)."""
+    settings.SECURE_SSL_REDIRECT = False
+    settings.SESSION_COOKIE_SECURE = False
+    settings.CSRF_COOKIE_SECURE = False
+    settings.JOB_HEARTBEAT_S = 3600
+
+
+@pytest.fixture(scope="session")
+def demo_small(tmp_path_factory):
+    """The demo consortium at its small scale, generated once per test session."""
+    from fixtures.demo import generate
+
+    return generate(tmp_path_factory.mktemp("demo-small"), scale="small", seed=7)
+
+
+@pytest.fixture
+def consortium(db):
+    """Two studies; study A has sites a1 and a2, study B has site b1; one person per role."""
+    from portal.accounts.setup import add_member, add_site, add_study
+
+    add_study("study-a", name="Study A")
+    add_study("study-b", name="Study B")
+    a1, _ = add_site("a1", study_slug="study-a", name="Site A1")
+    a2, _ = add_site("a2", study_slug="study-a", name="Site A2")
+    b1, _ = add_site("b1", study_slug="study-b", name="Site B1")
+    people = {}
+    for username, role, site in [
+        ("dm_a1", "data_manager", "a1"), ("dm_a2", "data_manager", "a2"),
+        ("analyst_a1", "analyst", "a1"), ("lead_a", "study_lead", "a1"),
+        ("auditor_a", "auditor", "a2"), ("dm_b1", "data_manager", "b1"),
+        ("lead_b", "study_lead", "b1"),
+    ]:
+        people[username], _ = add_member(username, role=role, site_slug=site)
+    people["operator"], _ = add_member("operator", role="operator")
+    return {"sites": {"a1": a1, "a2": a2, "b1": b1}, "people": people}
+
+
+@pytest.fixture(autouse=True)
+def _audit_truncate_for_flush(request):
+    """Transactional tests end with a TRUNCATE of every table, which the audit table's
+    trigger refuses on PostgreSQL. Lift only that trigger for the flush, and put it back
+    before the next test."""
+    marker = request.node.get_closest_marker("django_db")
+    if marker is None or not marker.kwargs.get("transaction"):
+        yield
+        return
+    request.getfixturevalue("transactional_db")
+    from django.db import connection
+
+    if connection.vendor != "postgresql":
+        yield
+        return
+    with connection.cursor() as cursor:
+        cursor.execute("ALTER TABLE audit_event ENABLE TRIGGER audit_event_no_truncate")
+    yield
+    with connection.cursor() as cursor:
+        cursor.execute("ALTER TABLE audit_event DISABLE TRIGGER audit_event_no_truncate")
