@@ -8,7 +8,10 @@ from portal.audit.models import Event
 from portal.studies.forms import ProtocolForm
 from portal.studies.models import ProtocolVersion, current_protocol
 from portal.studies.protocol import (
-    ProtocolError, default_protocol, level_for_rating, validate_protocol,
+    ProtocolError,
+    default_protocol,
+    level_for_rating,
+    validate_protocol,
 )
 
 

@@ -1,0 +1,40 @@
+# Cairn: `make demo` starts the demo portal on the embedded default; `make test` runs the suite.
+PYTHON ?= python3.11
+VENV := .venv
+BIN := $(VENV)/bin
+TEST_DATABASE_URL ?= postgres://postgres@127.0.0.1:5432/cairn
+TEST_BROKER_URL ?= redis://127.0.0.1:6379/15
+DEMO_SCALE ?= full
+
+.PHONY: demo test lint install services clean-demo
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+
+$(VENV)/.installed: $(BIN)/python requirements.txt requirements-test.txt
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -r requirements.txt -r requirements-test.txt
+	touch $@
+
+install: $(VENV)/.installed
+
+demo: install
+	$(BIN)/python manage.py migrate --noinput
+	$(BIN)/python manage.py load_demo --scale $(DEMO_SCALE)
+	$(BIN)/python manage.py serve_demo
+
+services:
+	bash .ci/services
+
+test: install services
+	bash .ci/browser
+	$(BIN)/ruff check .
+	DATABASE_URL=$(TEST_DATABASE_URL) CELERY_BROKER_URL=$(TEST_BROKER_URL) \
+	CAIRN_REQUIRE_SERVICES=1 CAIRN_VAR_DIR=$(CURDIR)/var/test \
+	$(BIN)/python -m pytest -q
+
+lint: install
+	$(BIN)/ruff check .
+
+clean-demo:
+	rm -rf var/cairn.sqlite3* var/blobs var/staging var/broker var/demo var/beat-schedule*
