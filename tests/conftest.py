@@ -4,9 +4,13 @@ import pytest
 
 
 @pytest.fixture(autouse=True)
-def _test_settings(settings):
+def _test_settings(request):
     """The test client speaks plain HTTP; in-process tests never wait on a heartbeat
-    (integration tests give their workers their own timing)."""
+    (integration tests give their workers their own timing). Skipped without pytest-django,
+    so the pure science tests also run with ``-p no:django``."""
+    if not request.config.pluginmanager.hasplugin("django"):
+        return
+    settings = request.getfixturevalue("settings")
     settings.SECURE_SSL_REDIRECT = False
     settings.SESSION_COOKIE_SECURE = False
     settings.CSRF_COOKIE_SECURE = False

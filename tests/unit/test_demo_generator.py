@@ -3,6 +3,7 @@
 import csv
 import hashlib
 import json
+import warnings
 
 import mne
 import mne_bids
@@ -17,7 +18,6 @@ from fixtures.demo.__main__ import main
 
 SEED = 7
 DATA_SUFFIXES = {".edf", ".eeg"}
-HEADER_SUFFIXES = {".edf", ".vhdr"}
 LEVELS = ("low", "moderate", "high")
 POSTERIOR = ("O1", "O2", "Oz", "Pz", "P3", "P4", "POz", "PO3", "PO4")
 FRONTAL = ("Fz", "F3", "F4", "FCz")
@@ -39,6 +39,7 @@ def demo(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def answer_key(demo):
+    """The generator's record of everything it injected."""
     return json.loads(demo.answer_key.read_text(encoding="utf-8"))
 
 
@@ -179,8 +180,10 @@ def test_broken_upload_contradicts_its_data(demo, answer_key):
     held = mne.io.read_raw_edf(data_path, verbose=False)
     assert set(listed) - set(held.ch_names) == {channels["extra_channel"]}
     assert channels["extra_channel"] in demo.broken_reason
-    with pytest.warns(RuntimeWarning, match="does not match the number of channels"):
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
         mne_bids.read_raw_bids(mne_bids.get_bids_path_from_fname(data_path), verbose=False)
+    assert any("does not match the number of channels" in str(w.message) for w in caught)
     assert len(list(demo.broken_upload.glob("sub-*"))) == 1
 
 
@@ -218,7 +221,7 @@ def test_answer_key_matches_injected_faults(demo, answer_key):
             if fault["kind"] == "flat":
                 assert variance[index] < 1e-6 * median_variance
             elif fault["kind"] == "noisy":
-                assert variance[index] > 10 * median_variance
+                assert variance[index] > 15 * median_variance
             elif fault["kind"] == "bridged":
                 partner = names.index(fault["partner"])
                 distance = np.linalg.norm(positions - positions[index], axis=1)
@@ -262,7 +265,7 @@ def test_recordings_without_listed_faults_are_clean(demo, answer_key):
         raw, data = _read(demo, record)
         variance = data.var(axis=1)
         assert variance.min() > 0.05 * np.median(variance)
-        assert variance.max() < 10 * np.median(variance)
+        assert variance.max() < 8 * np.median(variance)
         rms_uv = np.sqrt(np.median(variance)) * 1e6
         assert 5 < rms_uv < 50
         highpassed = mne.filter.filter_data(data, raw.info["sfreq"], 1.0, None, verbose=False)

@@ -27,6 +27,11 @@ class Command(BaseCommand):
             "web": [python, "-m", "gunicorn", "portal.wsgi", "--bind", bind, "--workers", "2",
                     "--timeout", "120"],
         }
+        def stop(signum, frame):
+            raise KeyboardInterrupt
+
+        signal.signal(signal.SIGINT, stop)
+        signal.signal(signal.SIGTERM, stop)
         children = {}
         for name, argv in commands.items():
             log = open(log_dir / f"{name}.log", "ab")
