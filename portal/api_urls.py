@@ -3,12 +3,15 @@
 from django.urls import path
 
 from portal.dashboard.views import api_me
-from portal.datasets.views import api_upload
+from portal.datasets import api
 from portal.jobs.views import api_job
 
 app_name = "api"
 urlpatterns = [
     path("me/", api_me, name="me"),
     path("jobs/<int:job_id>/", api_job, name="job"),
-    path("uploads/<int:upload_id>/", api_upload, name="upload"),
+    path("uploads/", api.create_upload, name="uploads"),
+    path("uploads/<int:upload_id>/", api.upload_status, name="upload"),
+    path("uploads/<int:upload_id>/chunks/", api.upload_chunk, name="upload_chunk"),
+    path("uploads/<int:upload_id>/finish/", api.finish_upload, name="upload_finish"),
 ]

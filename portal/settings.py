@@ -152,6 +152,12 @@ STORAGES = {
 # Blobs (uploaded files, derived tables, models): a local folder, content-addressed.
 BLOB_ROOT = Path(os.environ.get("CAIRN_BLOB_ROOT", VAR_DIR / "blobs")).resolve()
 STAGING_ROOT = Path(os.environ.get("CAIRN_STAGING_ROOT", VAR_DIR / "staging")).resolve()
+UPLOAD_MAX_BYTES = int(env_float("CAIRN_UPLOAD_MAX_BYTES", 50 * 1024**3))
+# Browser uploads are streamed to staging by our own handler; keep Django's in-memory limit
+# small so nothing else buffers a large body.
+FILE_UPLOAD_MAX_MEMORY_SIZE = 1024 * 1024
+DATA_UPLOAD_MAX_MEMORY_SIZE = 10 * 1024 * 1024
+DATA_UPLOAD_MAX_NUMBER_FILES = 20_000
 
 # Security: the secure defaults hold unless DEBUG; HTTPS settings follow CAIRN_HTTPS.
 HTTPS = env_bool("CAIRN_HTTPS", not DEBUG and bool(DATABASE_URL))

@@ -15,6 +15,9 @@ def _test_settings(request):
     settings.SESSION_COOKIE_SECURE = False
     settings.CSRF_COOKIE_SECURE = False
     settings.JOB_HEARTBEAT_S = 3600
+    scratch = request.getfixturevalue("tmp_path")
+    settings.BLOB_ROOT = scratch / "blobs"
+    settings.STAGING_ROOT = scratch / "staging"
 
 
 @pytest.fixture(scope="session")

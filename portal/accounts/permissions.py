@@ -102,6 +102,12 @@ def can(user, action, *, site=None, study=None):
     )
 
 
+def uploads_anywhere(user):
+    """True if the user may upload for at least one site (cheap early refusal for the API)."""
+    return is_operator(user) or _memberships(user).filter(
+        role__in=WRITE_ROLES[Action.UPLOAD]).exists()
+
+
 def require(user, action, *, site=None, study=None):
     if not can(user, action, site=site, study=study):
         raise PermissionDenied(f"not allowed to {Action(action).value} here")

@@ -7,7 +7,9 @@ from django.shortcuts import render
 
 from portal.accounts.models import STUDY_WIDE_ROLES
 from portal.accounts.permissions import (
+    Action,
     access,
+    can,
     get_visible_site,
     get_visible_study,
     is_operator,
@@ -78,7 +80,9 @@ def site_page(request, site_slug):
     ).get_page(request.GET.get("page"))
     _uploads_with_jobs(uploads.object_list)
     return render(request, "dashboard/site.html", {
-        "site": site, "uploads": uploads, "versions": site.versions.select_related("study")
+        "site": site, "uploads": uploads,
+        "may_upload": can(request.user, Action.UPLOAD, site=site),
+        "versions": site.versions.select_related("study")
         .annotate(n_recordings=Count("recordings"))[:20],
     })
 

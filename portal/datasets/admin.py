@@ -1,6 +1,13 @@
 from django.contrib import admin
 
-from portal.datasets.models import DatasetVersion, Participant, Recording, Upload
+from portal.datasets.models import (
+    Block,
+    DatasetVersion,
+    Participant,
+    Recording,
+    Upload,
+    VersionFile,
+)
 
 
 @admin.register(Upload)
@@ -11,11 +18,11 @@ class UploadAdmin(admin.ModelAdmin):
 
 @admin.register(DatasetVersion)
 class DatasetVersionAdmin(admin.ModelAdmin):
-    list_display = ("id", "site", "study", "number", "created_at")
-    readonly_fields = ("site", "study", "number", "upload", "manifest", "manifest_sha256")
+    list_display = ("id", "site", "study", "number", "n_files", "created_at")
+    readonly_fields = ("site", "study", "number", "upload", "parent", "manifest_sha256", "diff")
 
 
-admin.site.register(Participant)
-admin.site.register(Recording)
+for model in (VersionFile, Participant, Recording, Block):
+    admin.site.register(model)
 admin.site.site_header = "Cairn operator pages"
 admin.site.site_title = "Cairn operator pages"

@@ -53,6 +53,11 @@ def put_stream(stream):
     return sha256, size
 
 
+def file_sha256(path):
+    with open(path, "rb") as stream:
+        return hash_stream(stream)[0]
+
+
 def put_file(path):
     with open(path, "rb") as stream:
         return put_stream(stream)

@@ -27,6 +27,13 @@ class Upload(models.Model):
     )
     source = models.CharField(max_length=20, help_text="web, api or command")
     label = models.CharField(max_length=200, blank=True, help_text="Original file or folder name.")
+    staging_name = models.CharField(
+        max_length=100, blank=True, help_text="The archive's file in staging until validated."
+    )
+    expected_bytes = models.BigIntegerField(null=True, blank=True)
+    received = models.JSONField(
+        default=list, blank=True, help_text="Byte ranges received so far, as [start, end) pairs."
+    )
     archive_sha256 = models.CharField(max_length=64, blank=True)
     archive_bytes = models.BigIntegerField(default=0)
     errors = models.JSONField(default=list, blank=True)
@@ -44,6 +51,17 @@ class Upload(models.Model):
     def __str__(self):
         return f"upload {self.pk} from {self.site.slug} ({self.state})"
 
+    @property
+    def received_bytes(self):
+        return sum(end - start for start, end in self.received)
+
+    def errors_by_file(self):
+        """Errors grouped by file, in the order they were found."""
+        groups = {}
+        for problem in self.errors:
+            groups.setdefault(problem.get("path") or "(the upload)", []).append(problem)
+        return list(groups.items())
+
 
 class DatasetVersion(models.Model):
     """What a site's dataset held after an accepted upload. Never changed once written."""
@@ -52,8 +70,17 @@ class DatasetVersion(models.Model):
     study = models.ForeignKey("accounts.Study", on_delete=models.PROTECT, related_name="versions")
     number = models.PositiveIntegerField()
     upload = models.OneToOneField(Upload, on_delete=models.PROTECT, related_name="version")
-    manifest = models.JSONField(help_text="Every file: BIDS path, sha256, size in bytes.")
-    manifest_sha256 = models.CharField(max_length=64)
+    parent = models.ForeignKey(
+        "self", null=True, blank=True, on_delete=models.PROTECT, related_name="children"
+    )
+    manifest_sha256 = models.CharField(
+        max_length=64, help_text="sha256 of the sorted (path, sha256, bytes) list of its files."
+    )
+    diff = models.JSONField(
+        default=dict, help_text="Paths added, removed and changed since the parent version."
+    )
+    n_files = models.PositiveIntegerField(default=0)
+    total_bytes = models.BigIntegerField(default=0)
     created_at = models.DateTimeField(default=timezone.now)
 
     class Meta:
@@ -68,7 +95,30 @@ class DatasetVersion(models.Model):
         return f"{self.site.slug} v{self.number}"
 
 
+class VersionFile(models.Model):
+    """One file of a dataset version: its BIDS path and the blob holding its bytes."""
+
+    version = models.ForeignKey(DatasetVersion, on_delete=models.CASCADE, related_name="files")
+    path = models.CharField(max_length=500)
+    sha256 = models.CharField(max_length=64, db_index=True)
+    bytes = models.BigIntegerField()
+    original_sha256 = models.CharField(
+        max_length=64, blank=True, help_text="Hash as uploaded, when a scrubbed copy is kept."
+    )
+
+    class Meta:
+        ordering = ["version", "path"]
+        constraints = [
+            models.UniqueConstraint(fields=["version", "path"], name="one_file_per_path")
+        ]
+
+    def __str__(self):
+        return self.path
+
+
 class Participant(models.Model):
+    """A person, keyed by site and BIDS label: sub-01 of two sites are two people."""
+
     site = models.ForeignKey("accounts.Site", on_delete=models.PROTECT, related_name="participants")
     label = models.CharField(max_length=64, help_text="BIDS participant label (after 'sub-').")
 
@@ -88,17 +138,16 @@ class Recording(models.Model):
         Participant, on_delete=models.PROTECT, related_name="recordings"
     )
     path = models.CharField(max_length=500, help_text="Data file's path in the BIDS tree.")
-    sha256 = models.CharField(max_length=64)
+    sha256 = models.CharField(max_length=64, db_index=True)
     session = models.CharField(max_length=64, blank=True)
     task = models.CharField(max_length=64)
+    acquisition = models.CharField(max_length=64, blank=True)
     run = models.CharField(max_length=16, blank=True)
     sfreq_hz = models.FloatField()
     n_channels = models.PositiveIntegerField()
+    channel_names = models.JSONField(default=list)
     duration_s = models.FloatField()
     power_line_hz = models.FloatField(null=True, blank=True)
-    condition = models.CharField(max_length=64, blank=True)
-    rating = models.PositiveSmallIntegerField(null=True, blank=True)
-    level = models.CharField(max_length=64, blank=True)
 
     class Meta:
         ordering = ["version", "path"]
@@ -108,3 +157,24 @@ class Recording(models.Model):
 
     def __str__(self):
         return self.path
+
+
+class Block(models.Model):
+    """A stretch of a recording under one condition, with its workload rating if any.
+
+    A block is either a whole recording (one run per condition) or an event inside one
+    continuous recording.
+    """
+
+    recording = models.ForeignKey(Recording, on_delete=models.CASCADE, related_name="blocks")
+    onset_s = models.FloatField()
+    duration_s = models.FloatField()
+    condition = models.CharField(max_length=64, blank=True)
+    rating = models.PositiveSmallIntegerField(null=True, blank=True)
+    level = models.CharField(max_length=64, blank=True)
+
+    class Meta:
+        ordering = ["recording", "onset_s"]
+
+    def __str__(self):
+        return f"{self.recording.path} @ {self.onset_s:g} s"

@@ -4,5 +4,10 @@ from portal.datasets import views
 
 app_name = "datasets"
 urlpatterns = [
+    path("sites/<slug:site_slug>/upload/", views.upload_new, name="upload_new"),
     path("uploads/<int:upload_id>/", views.upload_detail, name="upload"),
+    path("versions/<int:version_id>/", views.version_detail, name="version"),
+    path("versions/<int:version_id>/download/", views.download_version, name="download_version"),
+    path("versions/<int:version_id>/files/<int:file_id>/", views.download_file,
+         name="download_file"),
 ]

@@ -1,10 +1,26 @@
-"""An upload's page: its state, what blocks it, and its validation job."""
+"""Uploads (web form), their reports, dataset versions and downloads."""
 
-from django.http import Http404, JsonResponse
-from django.shortcuts import get_object_or_404, render
+from pathlib import Path
 
-from portal.accounts.permissions import Action, access, can
-from portal.datasets.models import Upload
+from django.core.paginator import Paginator
+from django.http import FileResponse, Http404, JsonResponse, StreamingHttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.urls import reverse
+from django.views.decorators.csrf import csrf_exempt, csrf_protect
+
+from portal.accounts.permissions import Action, access, can, get_visible_site, require
+from portal.audit.events import record
+from portal.datasets import blobs
+from portal.datasets.downloads import stream_version_zip
+from portal.datasets.forms import UploadForm
+from portal.datasets.models import DatasetVersion, Upload, UploadState, VersionFile
+from portal.datasets.services import (
+    UploadError,
+    pack_staged_files,
+    safe_relative_path,
+    submit_staged,
+)
+from portal.datasets.uploadhandler import StagingUploadHandler
 from portal.jobs.models import Job
 
 
@@ -15,23 +31,135 @@ def visible_upload(user, upload_id):
     return upload
 
 
+def visible_version(user, version_id):
+    version = get_object_or_404(
+        DatasetVersion.objects.select_related("site", "study", "parent", "upload"), pk=version_id
+    )
+    if not can(user, Action.VIEW, site=version.site):
+        raise Http404("no such dataset version")
+    return version
+
+
+def upload_job(upload):
+    return Job.objects.filter(target_type="datasets.upload", target_id=str(upload.pk)).first()
+
+
 @access("checked")
 def upload_detail(request, upload_id):
     upload = visible_upload(request.user, upload_id)
-    job = Job.objects.filter(target_type="datasets.upload", target_id=str(upload.pk)).first()
-    version = getattr(upload, "version", None) if upload.state == "accepted" else None
-    recordings = version.recordings.select_related("participant")[:500] if version else []
+    version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
     return render(request, "datasets/upload.html", {
-        "upload": upload, "job": job, "version": version, "recordings": recordings,
+        "upload": upload, "job": upload_job(upload), "version": version,
     })
 
 
 @access("checked")
-def api_upload(request, upload_id):
-    upload = visible_upload(request.user, upload_id)
-    version = getattr(upload, "version", None) if upload.state == "accepted" else None
-    return JsonResponse({
-        "upload": upload.pk, "state": upload.state, "site": upload.site.slug,
-        "study": upload.study.slug, "dataset_version": version.pk if version else None,
-        "errors": upload.errors, "warnings": upload.warnings,
+@csrf_exempt
+def upload_new(request, site_slug):
+    """The web upload: one archive, or the files of a dataset folder, streamed to staging."""
+    site = get_visible_site(request.user, site_slug)
+    require(request.user, Action.UPLOAD, site=site)
+    if request.method == "POST":
+        # Our handler must be in place before anything (the CSRF check) reads the body.
+        request.upload_handlers = [StagingUploadHandler(request)]
+        return _receive(request, site)
+    return render(request, "datasets/upload_new.html", {
+        "site": site, "form": UploadForm(studies=site.studies.all()),
     })
+
+
+def _staged_of(request):
+    return [f for key in ("archive", "files") for f in request.FILES.getlist(key)]
+
+
+@csrf_protect
+def _receive(request, site):
+    form = UploadForm(request.POST, studies=site.studies.all())
+    staged = _staged_of(request)
+    wants_json = request.headers.get("Accept", "").startswith("application/json")
+    try:
+        if not form.is_valid():
+            raise UploadError("choose the study and what the files are", field="study")
+        study = site.studies.get(slug=form.cleaned_data["study"])
+        archives, files = request.FILES.getlist("archive"), request.FILES.getlist("files")
+        if bool(archives) == bool(files):
+            raise UploadError("send either one archive (.zip, .tar, .tar.gz) or the files of "
+                              "a dataset folder", field="files")
+        if archives:
+            if len(archives) > 1:
+                raise UploadError("send one archive at a time", field="archive")
+            item = archives[0]
+            upload = submit_staged(
+                item.staged_path, label=item.name, sha256=item.sha256, size=item.size,
+                site=site, study=study, user=request.user, mode=form.cleaned_data["mode"],
+                via="web",
+            )
+        else:
+            paths = request.POST.getlist("paths") or [f.name for f in files]
+            if len(paths) != len(files):
+                raise UploadError(f"{len(files)} files but {len(paths)} paths were sent",
+                                  field="paths")
+            pieces = [(safe_relative_path(p), f.staged_path) for p, f in zip(paths, files,
+                                                                             strict=True)]
+            target, sha256, size = pack_staged_files(pieces)
+            top = {piece[0].parts[0] for piece in pieces}
+            label = top.pop() if len(top) == 1 and len(pieces) > 1 else f"{len(pieces)} files"
+            upload = submit_staged(
+                target, label=label, sha256=sha256, size=size, site=site, study=study,
+                user=request.user, mode=form.cleaned_data["mode"], via="web",
+            )
+    except UploadError as exc:
+        for item in staged:
+            Path(item.staged_path).unlink(missing_ok=True)
+        if wants_json:
+            return JsonResponse({"error": str(exc), "field": exc.field}, status=400)
+        return render(request, "datasets/upload_new.html", {
+            "site": site, "form": form, "error": str(exc),
+        }, status=400)
+    url = reverse("datasets:upload", args=[upload.pk])
+    if wants_json:
+        return JsonResponse({"upload": upload.pk, "url": url}, status=201)
+    return redirect(url)
+
+
+@access("checked")
+def version_detail(request, version_id):
+    version = visible_version(request.user, version_id)
+    recordings = Paginator(
+        version.recordings.select_related("participant").prefetch_related("blocks"), 50
+    ).get_page(request.GET.get("page"))
+    return render(request, "datasets/version.html", {
+        "version": version, "recordings": recordings,
+        "participants": version.recordings.values("participant__label").distinct().count(),
+        "files": version.files.all()[:200],
+        "may_download": can(request.user, Action.DOWNLOAD, site=version.site),
+    })
+
+
+@access("checked")
+def download_file(request, version_id, file_id):
+    version = visible_version(request.user, version_id)
+    require(request.user, Action.DOWNLOAD, site=version.site)
+    item = get_object_or_404(VersionFile, pk=file_id, version=version)
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=version.site, study=version.study, target=item,
+           summary=f"downloaded {item.path} of {version}",
+           outputs=[{"path": item.path, "sha256": item.sha256, "bytes": item.bytes}])
+    return FileResponse(blobs.open_blob(item.sha256), as_attachment=True,
+                        filename=item.path.rsplit("/", 1)[-1])
+
+
+@access("checked")
+def download_version(request, version_id):
+    version = visible_version(request.user, version_id)
+    require(request.user, Action.DOWNLOAD, site=version.site)
+    rows = list(version.files.values_list("path", "sha256", "bytes"))
+    folder = f"{version.site.slug}-v{version.number}"
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=version.site, study=version.study, target=version,
+           summary=f"downloaded all {len(rows)} files of {version}",
+           outputs=[{"dataset_version": version.pk, "manifest_sha256": version.manifest_sha256}])
+    response = StreamingHttpResponse(stream_version_zip(rows, folder=folder),
+                                     content_type="application/zip")
+    response["Content-Disposition"] = f'attachment; filename="{folder}.zip"'
+    return response

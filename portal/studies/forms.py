@@ -19,6 +19,16 @@ class ProtocolForm(forms.Form):
     conditions = forms.CharField(help_text="Condition names, separated by commas.")
     condition_column = forms.CharField(help_text="Column of *_scans.tsv naming the condition.")
     rating_column = forms.CharField(help_text="Column of *_scans.tsv holding the rating.")
+    ratings_source = forms.ChoiceField(
+        choices=[("scans", "a column of each session's *_scans.tsv"),
+                 ("phenotype", "a table under phenotype/")], label="Ratings come from")
+    ratings_table = forms.CharField(required=False, label="Phenotype table",
+                                    help_text="Only for ratings from phenotype/, e.g. "
+                                              "phenotype/workload.tsv.")
+    deidentification = forms.ChoiceField(
+        choices=[("refuse", "refuse the upload and say what to remove"),
+                 ("scrub", "keep a scrubbed copy; keep only the original files' hashes")],
+        label="When headers or tables identify a person")
     rating_min = forms.IntegerField(label="Rating scale minimum")
     rating_max = forms.IntegerField(label="Rating scale maximum")
     levels = forms.CharField(widget=forms.Textarea(attrs={"rows": 4}),
@@ -42,6 +52,9 @@ class ProtocolForm(forms.Form):
             "tasks": ", ".join(p["tasks"]), "conditions": ", ".join(p["conditions"]),
             "condition_column": p["condition_column"],
             "rating_column": p["rating_scale"]["column"],
+            "ratings_source": p.get("ratings", {}).get("source", "scans"),
+            "ratings_table": p.get("ratings", {}).get("table", ""),
+            "deidentification": p.get("deidentification", "refuse"),
             "rating_min": p["rating_scale"]["min"], "rating_max": p["rating_scale"]["max"],
             "levels": format_levels(p["rating_scale"]["levels"]),
             "l_freq_hz": p["passband"]["l_freq_hz"], "h_freq_hz": p["passband"]["h_freq_hz"],
@@ -68,6 +81,9 @@ class ProtocolForm(forms.Form):
             "tasks": parse_names(data["tasks"]),
             "conditions": parse_names(data["conditions"]),
             "condition_column": data["condition_column"].strip(),
+            "ratings": {"source": data["ratings_source"],
+                        "table": (data.get("ratings_table") or "").strip()},
+            "deidentification": data["deidentification"],
             "rating_scale": {
                 "name": "workload rating", "column": data["rating_column"].strip(),
                 "min": data["rating_min"], "max": data["rating_max"], "levels": levels,
@@ -76,7 +92,8 @@ class ProtocolForm(forms.Form):
             "bands": bands,
             "qc": {k: data[f"qc_{k}"] for k in QC_FIELDS},
         }
-        field_for = {"rating_scale": "levels", "passband": "h_freq_hz"}
+        field_for = {"rating_scale": "levels", "passband": "h_freq_hz",
+                     "ratings": "ratings_table"}
         try:
             validate_protocol(protocol)
         except ProtocolError as exc:

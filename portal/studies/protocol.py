@@ -23,6 +23,12 @@ DEFAULT_PROTOCOL = {
     },
     # The column of each session's *_scans.tsv that names a recording's condition.
     "condition_column": "difficulty",
+    # Where ratings live: "scans" (a column of *_scans.tsv, per recording) or "phenotype"
+    # (a table under phenotype/ keyed by participant, session and block).
+    "ratings": {"source": "scans", "table": ""},
+    # Identifying headers or columns: "refuse" the upload, or "scrub" them and keep only the
+    # original files' hashes.
+    "deidentification": "refuse",
     "passband": {"l_freq_hz": 0.5, "h_freq_hz": 40.0},
     "bands": [
         {"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
@@ -85,6 +91,15 @@ def validate_protocol(protocol):
                          ("rating_scale", protocol.get("rating_scale", {}).get("column"))):
         if not isinstance(value, str) or not value.replace("_", "").isalnum():
             add(field, "name the scans.tsv column (letters, digits, '_')")
+
+    ratings = protocol.get("ratings", {})
+    if ratings.get("source") not in ("scans", "phenotype"):
+        add("ratings", "source must be 'scans' or 'phenotype'")
+    elif ratings["source"] == "phenotype" and not str(ratings.get("table", "")).startswith(
+            "phenotype/"):
+        add("ratings", "name the table, e.g. 'phenotype/workload.tsv'")
+    if protocol.get("deidentification") not in ("refuse", "scrub"):
+        add("deidentification", "choose 'refuse' or 'scrub'")
 
     scale = protocol.get("rating_scale", {})
     lo, hi = scale.get("min"), scale.get("max")

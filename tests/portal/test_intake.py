@@ -8,7 +8,7 @@ from django.core.exceptions import PermissionDenied
 
 from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import DatasetVersion, Upload
-from portal.datasets.services import UploadError, submit_upload
+from portal.datasets.services import UploadError, submit_path
 from portal.jobs import runner
 from portal.jobs.models import Job, JobState
 
@@ -49,7 +49,7 @@ def test_each_demo_site_is_accepted_and_indexed(demo_small, rail):
     key = json.loads(demo_small.answer_key.read_text())
     expected_ratings = {(r["site"], r["path"]): r["workload_rating"] for r in key["recordings"]}
     for site_info in demo_small.sites:
-        upload = submit_upload(site_info.bids_root, site=sites[site_info.slug], study=study,
+        upload = submit_path(site_info.bids_root, site=sites[site_info.slug], study=study,
                                user=people[site_info.slug])
         assert upload.state == "queued" and len(upload.archive_sha256) == 64
         validate(upload)
@@ -75,7 +75,7 @@ def test_each_demo_site_is_accepted_and_indexed(demo_small, rail):
 def test_broken_upload_is_rejected_with_file_and_field(demo_small, rail):
     study, sites, people = rail
     source = json.loads(demo_small.answer_key.read_text())["broken_upload"]["copied_from"]["site"]
-    upload = submit_upload(demo_small.broken_upload, site=sites[source], study=study,
+    upload = submit_path(demo_small.broken_upload, site=sites[source], study=study,
                            user=people[source])
     validate(upload)
     assert upload.state == "rejected"
@@ -89,10 +89,10 @@ def test_only_the_sites_data_manager_may_upload(demo_small, rail):
     study, sites, people = rail
     first, second = demo_small.sites[0], demo_small.sites[1]
     with pytest.raises(PermissionDenied):
-        submit_upload(first.bids_root, site=sites[first.slug], study=study,
+        submit_path(first.bids_root, site=sites[first.slug], study=study,
                       user=people["analyst"])
     with pytest.raises(PermissionDenied):
-        submit_upload(first.bids_root, site=sites[first.slug], study=study,
+        submit_path(first.bids_root, site=sites[first.slug], study=study,
                       user=people[second.slug])
     assert not Upload.objects.exists()
 
@@ -102,5 +102,5 @@ def test_folder_without_dataset_description_is_refused_before_storing(tmp_path, 
     slug = next(iter(sites))
     (tmp_path / "sub-01").mkdir()
     with pytest.raises(UploadError, match="no dataset_description.json"):
-        submit_upload(tmp_path, site=sites[slug], study=study, user=people[slug])
+        submit_path(tmp_path, site=sites[slug], study=study, user=people[slug])
     assert not Upload.objects.exists() and not Job.objects.exists()

@@ -9,7 +9,7 @@ from django.core.management.base import BaseCommand
 from portal.accounts.models import Site
 from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import Upload
-from portal.datasets.services import submit_upload
+from portal.datasets.services import submit_path
 from portal.studies.models import current_protocol, save_protocol
 
 STUDY_SLUG = "rail-workload"
@@ -58,7 +58,7 @@ class Command(BaseCommand):
             if Upload.objects.filter(site__slug=site_slug, label=folder.name).exists():
                 continue
             manager = get_user_model().objects.get(username=f"dm-{site_slug}")
-            upload = submit_upload(folder, site=Site.objects.get(slug=site_slug), study=study,
+            upload = submit_path(folder, site=Site.objects.get(slug=site_slug), study=study,
                                    user=manager, via="command")
             self.stdout.write(f"submitted {what}: upload {upload.pk}")
         self._print_logins(logins)

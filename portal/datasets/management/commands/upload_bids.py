@@ -6,7 +6,7 @@ from django.core.management.base import BaseCommand, CommandError
 
 from portal.accounts.setup import SetupError, get_site, get_study
 from portal.datasets.models import Upload, UploadMode, UploadState
-from portal.datasets.services import UploadError, submit_upload
+from portal.datasets.services import UploadError, submit_path
 
 
 class Command(BaseCommand):
@@ -30,7 +30,7 @@ class Command(BaseCommand):
             raise CommandError(str(exc)) from None
         user = self._user(as_user)
         try:
-            upload = submit_upload(path, site=site_obj, study=study_obj, user=user, mode=mode,
+            upload = submit_path(path, site=site_obj, study=study_obj, user=user, mode=mode,
                                    via="command")
         except UploadError as exc:
             raise CommandError(str(exc)) from None

@@ -1,0 +1,118 @@
+"""The upload API for lab servers: announce, send chunks at offsets, finish with a sha256."""
+
+import json
+
+from django.http import JsonResponse
+from django.views.decorators.http import require_http_methods
+
+from portal.accounts.permissions import (
+    Action, access, can, get_visible_site, uploads_anywhere,
+)
+from portal.datasets.models import UploadState
+from portal.datasets.services import (
+    UploadError,
+    finish_chunked,
+    missing_ranges,
+    start_chunked,
+    write_chunk,
+)
+from portal.datasets.views import upload_job, visible_upload
+
+
+def _error(exc, status=400):
+    return JsonResponse({"error": str(exc), "field": getattr(exc, "field", None)}, status=status)
+
+
+def _json_body(request):
+    try:
+        data = json.loads(request.body or b"{}")
+    except (ValueError, UnicodeDecodeError):
+        raise UploadError("the request body must be a JSON object", field="body") from None
+    if not isinstance(data, dict):
+        raise UploadError("the request body must be a JSON object", field="body")
+    return data
+
+
+def upload_json(upload):
+    version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
+    job = upload_job(upload)
+    out = {
+        "upload": upload.pk, "state": upload.state, "site": upload.site.slug,
+        "study": upload.study.slug, "mode": upload.mode,
+        "dataset_version": version.pk if version else None,
+        "errors": upload.errors, "warnings": upload.warnings,
+        "job": {"id": job.pk, "state": job.state, "done": job.progress_done,
+                "total": job.progress_total} if job else None,
+    }
+    if upload.state == UploadState.RECEIVING:
+        out.update(size=upload.expected_bytes, received=upload.received,
+                   missing=missing_ranges(upload))
+    return out
+
+
+@access("checked")
+@require_http_methods(["POST"])
+def create_upload(request):
+    """POST {"site", "study", "mode", "filename", "size"} → 201 with the upload's id."""
+    if not uploads_anywhere(request.user):
+        return _error(UploadError("your roles do not include uploading data"), status=403)
+    try:
+        data = _json_body(request)
+        site = get_visible_site(request.user, str(data.get("site", "")))
+        study = site.studies.filter(slug=str(data.get("study", ""))).first()
+        if study is None:
+            raise UploadError(f"site {site.slug} takes part in no study "
+                              f"{data.get('study')!r}", field="study")
+        upload = start_chunked(
+            site=site, study=study, user=request.user, mode=data.get("mode", "snapshot"),
+            label=str(data.get("filename", "upload")), expected_bytes=data.get("size"),
+            token=request.api_token,
+        )
+    except UploadError as exc:
+        return _error(exc)
+    return JsonResponse(upload_json(upload), status=201)
+
+
+@access("checked")
+@require_http_methods(["GET"])
+def upload_status(request, upload_id):
+    return JsonResponse(upload_json(visible_upload(request.user, upload_id)))
+
+
+@access("checked")
+@require_http_methods(["PUT"])
+def upload_chunk(request, upload_id):
+    """PUT raw bytes to …/chunks/?offset=N (Content-Length required). Repeats are harmless."""
+    upload = visible_upload(request.user, upload_id)
+    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
+        return _error(UploadError("you may not upload for this site"), status=403)
+    try:
+        offset = int(request.GET.get("offset", ""))
+        length = int(request.META.get("CONTENT_LENGTH") or -1)
+    except ValueError:
+        return _error(UploadError("give ?offset=<byte offset> and a Content-Length",
+                                  field="offset"))
+    if length < 0:
+        return _error(UploadError("a Content-Length header is required", field="length"))
+    try:
+        upload = write_chunk(upload.pk, offset=offset, stream=request, length=length)
+    except UploadError as exc:
+        return _error(exc, status=409 if exc.field == "state" else 400)
+    return JsonResponse(upload_json(upload))
+
+
+@access("checked")
+@require_http_methods(["POST"])
+def finish_upload(request, upload_id):
+    """POST {"sha256": "<hex>"}: checks completeness and the checksum, then queues validation."""
+    upload = visible_upload(request.user, upload_id)
+    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
+        return _error(UploadError("you may not upload for this site"), status=403)
+    try:
+        data = _json_body(request)
+        upload = finish_chunked(upload.pk, sha256=str(data.get("sha256", "")),
+                                user=request.user, token=request.api_token)
+    except UploadError as exc:
+        return _error(exc, status=409 if exc.field == "state" else 400)
+    status = 422 if upload.state == UploadState.REJECTED else 202
+    return JsonResponse(upload_json(upload), status=status)
