@@ -31,7 +31,8 @@ def demo_small(tmp_path_factory):
 @pytest.fixture
 def consortium(db):
     """Two studies; study A has sites a1 and a2, study B has site b1; one person per role."""
-    from portal.accounts.setup import add_member, add_site, add_study
+    from portal.accounts.setup import add_site, add_study
+    from tests.helpers import member
 
     add_study("study-a", name="Study A")
     add_study("study-b", name="Study B")
@@ -45,8 +46,8 @@ def consortium(db):
         ("auditor_a", "auditor", "a2"), ("dm_b1", "data_manager", "b1"),
         ("lead_b", "study_lead", "b1"),
     ]:
-        people[username], _ = add_member(username, role=role, site_slug=site)
-    people["operator"], _ = add_member("operator", role="operator")
+        people[username], _ = member(username, role=role, site_slug=site)
+    people["operator"], _ = member("operator", role="operator")
     return {"sites": {"a1": a1, "a2": a2, "b1": b1}, "people": people}
 
 

@@ -129,3 +129,20 @@ class LoginFailure(models.Model):
 
     class Meta:
         ordering = ["-at"]
+
+
+class AccountFlags(models.Model):
+    """Per-person flags: a person given a one-time password must choose their own first."""
+
+    user = models.OneToOneField(
+        settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="account_flags"
+    )
+    must_change_password = models.BooleanField(default=False)
+
+    @classmethod
+    def require_new_password(cls, user, required=True):
+        cls.objects.update_or_create(user=user, defaults={"must_change_password": required})
+
+    @classmethod
+    def needs_new_password(cls, user):
+        return cls.objects.filter(user=user, must_change_password=True).exists()

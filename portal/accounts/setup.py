@@ -6,7 +6,7 @@ from django.contrib.auth import get_user_model
 from django.core.validators import validate_slug
 from django.db import transaction
 
-from portal.accounts.models import Membership, Role, Site, Study
+from portal.accounts.models import AccountFlags, Membership, Role, Site, Study
 from portal.audit.events import record
 
 
@@ -97,6 +97,7 @@ def add_member(username, *, role, site_slug=None, email=""):
         if user is None:
             password = secrets.token_urlsafe(12)
             user = User.objects.create_user(username=username, email=email, password=password)
+            AccountFlags.require_new_password(user)
             record("user.created", target=user, summary=f"user {username} created")
         if role == Role.OPERATOR and not (user.is_staff and user.is_superuser):
             user.is_staff = user.is_superuser = True

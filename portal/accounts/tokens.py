@@ -20,3 +20,27 @@ class ApiTokenMiddleware:
                 # Token requests carry no session cookie, so CSRF does not apply to them.
                 request._dont_enforce_csrf_checks = True
         return self.get_response(request)
+
+
+class OneTimePasswordMiddleware:
+    """Sends a person still on their one-time password to the password page first."""
+
+    ALLOWED = ("/account/password/", "/account/logout/", "/static/")
+
+    def __init__(self, get_response):
+        self.get_response = get_response
+
+    def __call__(self, request):
+        from django.contrib import messages
+        from django.shortcuts import redirect
+
+        from portal.accounts.models import AccountFlags
+
+        user = request.user
+        if (user.is_authenticated and request.api_token is None
+                and not request.path.startswith(self.ALLOWED)
+                and AccountFlags.needs_new_password(user)):
+            messages.info(request, "You signed in with a one-time password: choose your own "
+                                   "password before going on.")
+            return redirect("accounts:password_change")
+        return self.get_response(request)

@@ -9,7 +9,7 @@ from django.views.decorators.http import require_POST
 
 from portal.accounts import throttle
 from portal.accounts.forms import ThrottledLoginForm, TokenForm
-from portal.accounts.models import ApiToken
+from portal.accounts.models import AccountFlags, ApiToken
 from portal.accounts.permissions import access
 from portal.audit.events import record
 
@@ -43,6 +43,7 @@ class PasswordChangeView(auth_views.PasswordChangeView):
 
     def form_valid(self, form):
         response = super().form_valid(form)
+        AccountFlags.require_new_password(self.request.user, required=False)
         record("password.changed", actor=self.request.user, summary="password changed")
         return response
 

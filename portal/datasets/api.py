@@ -6,7 +6,11 @@ from django.http import JsonResponse
 from django.views.decorators.http import require_http_methods
 
 from portal.accounts.permissions import (
-    Action, access, can, get_visible_site, uploads_anywhere,
+    Action,
+    access,
+    can,
+    get_visible_site,
+    uploads_anywhere,
 )
 from portal.datasets.models import UploadState
 from portal.datasets.services import (

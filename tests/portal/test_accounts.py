@@ -113,3 +113,17 @@ def test_api_token_is_stored_hashed_and_authenticates(client, consortium):
     client.post(reverse("accounts:revoke_token", args=[token.pk]))
     client.logout()
     assert client.get(reverse("api:me"), HTTP_AUTHORIZATION=f"Bearer {raw}").status_code == 403
+
+
+def test_one_time_password_must_be_replaced_before_anything_else(client):
+    run("add_study", "rail", "--name", "Rail")
+    run("add_site", "north", "--study", "rail", "--name", "North")
+    out = run("add_member", "ana", "--site", "north", "--role", "analyst")
+    password = out.split("one-time password: ")[1].split()[0]
+    client.post(reverse("accounts:login"), {"username": "ana", "password": password})
+    response = client.get(reverse("dashboard:home"))
+    assert response.status_code == 302 and response.url == reverse("accounts:password_change")
+    client.post(reverse("accounts:password_change"), {
+        "old_password": password, "new_password1": "my-own-long-phrase-42",
+        "new_password2": "my-own-long-phrase-42"})
+    assert client.get(reverse("dashboard:home")).status_code == 200

@@ -6,11 +6,12 @@ import json
 import pytest
 from django.core.exceptions import PermissionDenied
 
-from portal.accounts.setup import add_member, add_site, add_study
+from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import DatasetVersion, Upload
 from portal.datasets.services import UploadError, submit_path
 from portal.jobs import runner
 from portal.jobs.models import Job, JobState
+from tests.helpers import member
 
 pytestmark = pytest.mark.django_db
 
@@ -22,9 +23,9 @@ def rail(demo_small):
     sites = {}
     for site_info in demo_small.sites:
         sites[site_info.slug], _ = add_site(site_info.slug, study_slug="rail", name=site_info.name)
-        people[site_info.slug], _ = add_member(f"dm-{site_info.slug}", role="data_manager",
+        people[site_info.slug], _ = member(f"dm-{site_info.slug}", role="data_manager",
                                                site_slug=site_info.slug)
-    people["analyst"], _ = add_member("analyst", role="analyst",
+    people["analyst"], _ = member("analyst", role="analyst",
                                       site_slug=demo_small.sites[0].slug)
     return study, sites, people
 

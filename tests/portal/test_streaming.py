@@ -15,9 +15,10 @@ from django.db import close_old_connections
 from django.urls import reverse
 
 from portal.accounts.models import ApiToken
-from portal.accounts.setup import add_member, add_site, add_study
+from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import staging_path
+from tests.helpers import member
 
 pytestmark = pytest.mark.django_db
 
@@ -94,7 +95,7 @@ def environ(method, path, *, body, content_type, headers=None):
 def manager(db):
     add_study("rail", name="Rail")
     add_site("north", study_slug="rail", name="North")
-    user, _ = add_member("dm", role="data_manager", site_slug="north")
+    user, _ = member("dm", role="data_manager", site_slug="north")
     return user
 
 

@@ -7,10 +7,11 @@ import pytest
 from django.urls import reverse
 
 from portal.accounts.models import ApiToken
-from portal.accounts.setup import add_member, add_site, add_study
+from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import staging_path
 from portal.jobs.models import Job
+from tests.helpers import member
 from workers.archive import pack_folder
 
 pytestmark = pytest.mark.django_db
@@ -24,8 +25,8 @@ def lab(demo_small):
     site_info = demo_small.sites[0]
     add_site(site_info.slug, study_slug="rail", name=site_info.name)
     add_site("other", study_slug="rail", name="Other lab")
-    manager, _ = add_member("dm", role="data_manager", site_slug=site_info.slug)
-    outsider, _ = add_member("dm-other", role="data_manager", site_slug="other")
+    manager, _ = member("dm", role="data_manager", site_slug=site_info.slug)
+    outsider, _ = member("dm-other", role="data_manager", site_slug="other")
     _, raw = ApiToken.issue(manager, "lab server")
     _, other_raw = ApiToken.issue(outsider, "other server")
     buffer = io.BytesIO()

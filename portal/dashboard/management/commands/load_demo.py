@@ -6,7 +6,7 @@ from django.conf import settings
 from django.contrib.auth import get_user_model
 from django.core.management.base import BaseCommand
 
-from portal.accounts.models import Site
+from portal.accounts.models import AccountFlags, Site
 from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import submit_path
@@ -68,6 +68,7 @@ class Command(BaseCommand):
         password = secrets.token_urlsafe(9)
         user.set_password(password)
         user.save(update_fields=["password"])
+        AccountFlags.require_new_password(user, required=False)  # demo log-ins stay as printed
         logins.append((username, role, site_slug or "all sites", password))
         return user
 
