@@ -1,11 +1,37 @@
-"""Packing a folder for upload and unpacking uploaded archives without trusting their contents."""
+"""Packing a folder for upload and unpacking uploaded archives without trusting their contents.
 
+Members are streamed in 1 MiB chunks into a temporary folder beside the destination, which is
+renamed into place only once the whole archive has passed; a refused archive leaves nothing.
+"""
+
+import gzip
+import lzma
 import os
+import shutil
 import stat
+import struct
 import tarfile
+import tempfile
+import unicodedata
 import zipfile
+import zlib
+from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass
-from pathlib import Path, PurePosixPath
+from pathlib import Path
+
+CHUNK_BYTES = 1024 * 1024
+MAX_NAME_PART_BYTES = 255  # the longest file or folder name common file systems store
+MAX_PATH_BYTES = 1024
+MAX_TAR_HEADER_BYTES = 1024 * 1024  # per member: long names and extended headers, held whole
+MAX_ZIP_DIRECTORY_BYTES = 64 * 1024 * 1024  # zipfile reads the central directory whole
+ZIP_METHODS = {zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED, zipfile.ZIP_BZIP2, zipfile.ZIP_LZMA}
+ZIP_ENCRYPTED_FLAG = 0x1
+
+# What zipfile, tarfile, gzip and the decompressors raise on a damaged archive; caught only
+# around reads from the archive, never around writes to the destination.
+_DAMAGE = (zipfile.BadZipFile, tarfile.TarError, EOFError, OSError, zlib.error,
+           lzma.LZMAError, struct.error, ValueError, RuntimeError)
+_REMAKE = "Make the archive again from the original dataset folder and upload the new file."
 
 
 class ArchiveError(ValueError):
@@ -14,138 +40,421 @@ class ArchiveError(ValueError):
 
 @dataclass(frozen=True)
 class ExtractLimits:
+    """Ceilings on what one archive may unpack to."""
+
     max_total_bytes: int = 20 * 1024**3
-    max_files: int = 100_000
-    max_ratio: float = 200.0  # unpacked / packed size
+    max_files: int = 100_000  # entries: files and folders listed in the archive
+    max_ratio: float = 200.0  # unpacked bytes / archive bytes
+    max_depth: int = 32  # path parts, folders and file name together
 
 
-def pack_folder(folder, sink):
-    """Write ``folder`` as an uncompressed tar stream to the binary file ``sink``, by name."""
-    folder = Path(folder)
-    with tarfile.open(fileobj=sink, mode="w|", format=tarfile.PAX_FORMAT) as tar:
-        for path in sorted(folder.rglob("*")):
-            if path.is_symlink():
-                raise ArchiveError(f"{path.relative_to(folder)}: symbolic links are not uploaded")
-            if path.is_file():
-                tar.add(path, arcname=path.relative_to(folder).as_posix(), recursive=False)
+def _show(name):
+    """``name`` in quotes, with control characters escaped so the message stays readable."""
+    return "'" + "".join(c if c.isprintable() else ascii(c)[1:-1] for c in name) + "'"
 
 
-def _check_name(name, seen):
-    posix = PurePosixPath(name)
-    if posix.is_absolute() or name.startswith(("/", "\\")) or ":" in posix.parts[0]:
-        raise ArchiveError(f"{name}: absolute paths are not allowed in an upload")
-    if any(part == ".." for part in posix.parts):
-        raise ArchiveError(f"{name}: '..' is not allowed in a path")
-    folded = posix.as_posix().lower()
-    if folded in seen:
-        raise ArchiveError(
-            f"{name}: another member has the same name (or one differing only in case: "
-            f"{seen[folded]})"
-        )
-    seen[folded] = name
+def _refuse(label, member, text):
+    where = label if member is None else f"{label}: entry {_show(member)}"
+    return ArchiveError(f"{where}: {text}")
 
 
-def _strip_single_root(names):
-    """If every member sits under one top folder (a zipped dataset folder), drop that folder."""
-    tops = {PurePosixPath(n).parts[0] for n in names if PurePosixPath(n).parts}
-    if len(tops) == 1 and not any(len(PurePosixPath(n).parts) == 1 for n in names):
-        top = tops.pop()
-        if top != "dataset_description.json":
-            return top
+@contextmanager
+def _reading(label, member=None):
+    """Report any failure to read the archive as one ArchiveError naming it (and the member)."""
+    try:
+        yield
+    except ArchiveError:
+        raise
+    except _DAMAGE as exc:
+        raise _refuse(label, member, "cannot be read; the archive is truncated or damaged, or "
+                      f"a header does not match the data. {_REMAKE}") from exc
+
+
+def _mb(n_bytes):
+    return f"{n_bytes / 1e6:,.1f} MB"
+
+
+def _check_size(label, member, total_bytes, packed_bytes, limits, verb):
+    """Refuse once ``total_bytes`` unpacked (declared or counted, per ``verb``) is too much."""
+    if total_bytes > limits.max_total_bytes:
+        raise _refuse(label, member, f"the archive {verb} {_mb(total_bytes)} of unpacked data, "
+                      f"more than the limit of {_mb(limits.max_total_bytes)}. Split the dataset "
+                      "into several uploads, or ask the operator to raise the limit.")
+    if total_bytes > limits.max_ratio * packed_bytes:
+        ratio = total_bytes / packed_bytes
+        raise _refuse(label, member, f"the archive {verb} {ratio:,.0f} times its own size "
+                      f"({_mb(packed_bytes)}) of unpacked data, more than the limit of "
+                      f"{limits.max_ratio:,.0f} times; that is the mark of an archive bomb. "
+                      "If the data is genuine, upload it as an uncompressed .tar or as a folder.")
+
+
+def _check_count(label, member, count, limits):
+    if count > limits.max_files:
+        raise _refuse(label, member, f"the archive holds more than {limits.max_files:,} entries "
+                      "(files and folders). Split the dataset into several uploads.")
+
+
+def _fold(path):
+    return unicodedata.normalize("NFC", path).casefold()
+
+
+def _split(label, name, limits, *, is_dir):
+    """The safe path parts of a member name (``.`` parts dropped), or ArchiveError saying why."""
+    def refuse(text):
+        return _refuse(label, name, text)
+
+    if not name:
+        raise refuse("has an empty name. " + _REMAKE)
+    if any(unicodedata.category(c) in ("Cc", "Cs") for c in name):
+        raise refuse("its name holds a NUL, another control character or bytes that are not "
+                     "text. Rename the file with letters, digits, '-', '_' and '.'.")
+    if name.startswith(("/", "\\")) or (name[1:2] == ":" and name[0].isascii()
+                                        and name[0].isalpha()):
+        raise refuse("is an absolute path; paths in an upload must be relative to the dataset "
+                     "folder. Make the archive from inside the dataset folder.")
+    if "\\" in name:
+        raise refuse("contains a backslash; folders in an archive are separated by '/'. "
+                     "Make the archive with a tool that writes standard paths.")
+    if ":" in name:
+        raise refuse("contains ':', which many file systems cannot store in a name. "
+                     "Rename the file.")
+    parts = [part for part in name.split("/") if part not in ("", ".")]
+    if ".." in parts:
+        raise refuse("climbs out of the dataset folder with '..'. Make the archive from inside "
+                     "the dataset folder so that every path stays within it.")
+    if not parts and not is_dir:
+        raise refuse("names no file. " + _REMAKE)
+    for part in parts:
+        if len(part.encode()) > MAX_NAME_PART_BYTES:
+            raise refuse(f"has a name part {len(part.encode())} bytes long; the limit is "
+                         f"{MAX_NAME_PART_BYTES} bytes. Shorten it.")
+    if len(name.encode()) > MAX_PATH_BYTES:
+        raise refuse(f"has a path {len(name.encode())} bytes long; the limit is "
+                     f"{MAX_PATH_BYTES} bytes. Shorten it.")
+    if len(parts) > limits.max_depth:
+        raise refuse(f"lies {len(parts)} levels deep; the limit is {limits.max_depth}. "
+                     "Flatten the folder structure.")
+    return tuple(parts)
+
+
+class _Names:
+    """Member paths seen so far, to refuse duplicates and names a case-blind disk would merge."""
+
+    def __init__(self, label, limits):
+        self.label, self.limits, self.seen = label, limits, {}
+
+    def add(self, name, *, is_dir):
+        """Check ``name`` against the rules and the names before it; return its path parts."""
+        parts = _split(self.label, name, self.limits, is_dir=is_dir)
+        for depth in range(1, len(parts) + 1):
+            path = "/".join(parts[:depth])
+            kind = "file" if depth == len(parts) and not is_dir else "folder"
+            key = _fold(path)
+            if key not in self.seen:
+                self.seen[key] = (path, kind)
+                continue
+            other, other_kind = self.seen[key]
+            if other != path:
+                if unicodedata.normalize("NFC", other) == unicodedata.normalize("NFC", path):
+                    how = "the same name with its accents written in another Unicode form"
+                else:
+                    how = "a name differing only in upper/lower case"
+                raise _refuse(self.label, name, f"clashes with {_show(other)}, {how}; "
+                              "many disks store both as one file. Rename one of them.")
+            if kind == "file" and other_kind == "file":
+                raise _refuse(self.label, name, "appears twice in the archive. " + _REMAKE)
+            if kind != other_kind:
+                raise _refuse(self.label, name, f"{_show(path)} is used both as a file and as a "
+                              "folder. Rename one of them.")
+        return parts
+
+
+def _copy(label, name, stream, target, declared_bytes, meter):
+    """Stream one member to ``target``, counting real bytes so a lying header cannot hide."""
+    written = 0
+    with open(target, "xb") as sink:
+        while True:
+            with _reading(label, name):
+                chunk = stream.read(CHUNK_BYTES)
+            if not chunk:
+                break
+            written += len(chunk)
+            if written > declared_bytes:
+                raise _refuse(label, name, f"holds more data than the {declared_bytes:,} bytes "
+                              "its header declares. " + _REMAKE)
+            meter(name, len(chunk))
+            sink.write(chunk)
+    if written != declared_bytes:
+        raise _refuse(label, name, f"holds {written:,} bytes but its header declares "
+                      f"{declared_bytes:,} bytes. " + _REMAKE)
+
+
+def _counter(label, packed_bytes, limits):
+    """A callable that adds unpacked bytes as they stream and refuses past the limits."""
+    total = 0
+
+    def count(name, n_bytes):
+        nonlocal total
+        total += n_bytes
+        _check_size(label, name, total, packed_bytes, limits, "holds")
+
+    return count
+
+
+def _zip_directory(archive, label):
+    """Entry count and central-directory size from the zip's end record, read before zipfile
+    loads the whole directory into memory."""
+    with open(archive, "rb") as raw, _reading(label):
+        size = raw.seek(0, os.SEEK_END)
+        raw.seek(max(0, size - 22 - 0xFFFF - 20))
+        tail = raw.read()
+        end = tail.rfind(b"PK\x05\x06")
+        if end < 0 or len(tail) - end < 22:
+            raise zipfile.BadZipFile("no end-of-directory record")
+        entries, directory_bytes = struct.unpack_from("<HI", tail, end + 10)
+        if (entries == 0xFFFF or directory_bytes == 0xFFFFFFFF) and end >= 20 \
+                and tail[end - 20:end - 16] == b"PK\x06\x07":
+            raw.seek(struct.unpack_from("<Q", tail, end - 12)[0])
+            record = raw.read(56)
+            if record[:4] == b"PK\x06\x06":
+                entries, directory_bytes = struct.unpack_from("<QQ", record, 32)
+    return entries, directory_bytes
+
+
+def _zip_is_dir(label, info):
+    """Whether a zip member is a folder; refuses links and special files by their Unix mode."""
+    mode = info.external_attr >> 16
+    if stat.S_ISLNK(mode):
+        raise _refuse(label, info.orig_filename, "is a symbolic link; links are not accepted "
+                      "because they can point outside the dataset. Replace it with a copy of "
+                      "the file it points to.")
+    if stat.S_ISDIR(mode) or info.orig_filename.endswith("/"):
+        return True
+    if stat.S_IFMT(mode) not in (0, stat.S_IFREG):
+        raise _refuse(label, info.orig_filename, "is a special file (a device, pipe or socket); "
+                      "only regular files and folders are accepted. Remove it from the dataset.")
+    return False
+
+
+def _unpack_zip(archive, label, into, limits, packed_bytes):
+    entries, directory_bytes = _zip_directory(archive, label)
+    _check_count(label, None, entries, limits)
+    if directory_bytes > MAX_ZIP_DIRECTORY_BYTES:
+        raise _refuse(label, None, f"its table of contents is {_mb(directory_bytes)}, more than "
+                      f"the limit of {_mb(MAX_ZIP_DIRECTORY_BYTES)}. " + _REMAKE)
+    with _reading(label):
+        zf = zipfile.ZipFile(archive)
+    with zf:
+        names, plan, declared = _Names(label, limits), [], 0
+        _check_count(label, None, len(zf.infolist()), limits)
+        for info in zf.infolist():
+            name = info.orig_filename
+            is_dir = _zip_is_dir(label, info)
+            if info.flag_bits & ZIP_ENCRYPTED_FLAG:
+                raise _refuse(label, name, "is encrypted (password-protected), which Cairn "
+                              "cannot read. Make the archive again without a password.")
+            if info.compress_type not in ZIP_METHODS:
+                raise _refuse(label, name, f"is compressed with zip method {info.compress_type}, "
+                              "which Cairn cannot read. Make the archive again with ordinary "
+                              "(deflate) compression.")
+            parts = names.add(name, is_dir=is_dir)
+            declared += info.file_size
+            _check_size(label, name, declared, packed_bytes, limits, "declares")
+            plan.append((info, parts, is_dir))
+        count = _counter(label, packed_bytes, limits)
+        for info, parts, is_dir in plan:
+            target = into.joinpath(*parts)
+            if is_dir:
+                target.mkdir(parents=True, exist_ok=True)
+                continue
+            target.parent.mkdir(parents=True, exist_ok=True)
+            with _reading(label, info.orig_filename):
+                stream = zf.open(info)
+            with stream:
+                _copy(label, info.orig_filename, stream, target, info.file_size, count)
+            yield parts
+
+
+class _TarStream:
+    """The tar byte stream, refusing more than MAX_TAR_HEADER_BYTES read between member data;
+    tarfile holds long names and extended headers in memory whole."""
+
+    def __init__(self, raw, label):
+        self.raw, self.label = raw, label
+        self.header_bytes, self.in_member = 0, False
+
+    def read(self, size=-1):
+        data = self.raw.read(size)
+        if not self.in_member:
+            self.header_bytes += len(data)
+            if self.header_bytes > MAX_TAR_HEADER_BYTES:
+                raise _refuse(self.label, None, f"holds more than {_mb(MAX_TAR_HEADER_BYTES)} of "
+                              "tar headers for one entry (long names or extended headers), far "
+                              "more than a dataset needs. " + _REMAKE)
+        return data
+
+    def data_starts(self):
+        self.in_member = True
+
+    def data_ends(self):
+        self.in_member, self.header_bytes = False, 0
+
+
+class _StrictTarInfo(tarfile.TarInfo):
+    """Tar headers that end the archive only at its end-of-archive block; tarfile on its own
+    stops quietly at a damaged or cut-off header past the first one."""
+
+    @classmethod
+    def fromtarfile(cls, tar):
+        try:
+            return super().fromtarfile(tar)
+        except tarfile.EOFHeaderError:
+            raise
+        except tarfile.HeaderError as exc:
+            raise tarfile.ReadError(f"damaged or cut-off header: {exc}") from exc
+
+
+def _unpack_tar(archive, label, into, limits, packed_bytes, *, compressed):
+    with open(archive, "rb") as raw, \
+            gzip.GzipFile(fileobj=raw, mode="rb") if compressed else nullcontext(raw) as source:
+        stream = _TarStream(source, label)
+        with _reading(label):
+            tar = tarfile.open(fileobj=stream, mode="r|", tarinfo=_StrictTarInfo)
+        with tar:
+            names, entries, declared = _Names(label, limits), 0, 0
+            count = _counter(label, packed_bytes, limits)
+            while True:
+                with _reading(label):
+                    info = tar.next()
+                if info is None:
+                    break
+                entries += 1
+                _check_count(label, info.name, entries, limits)
+                if info.issym() or info.islnk():
+                    kind = "symbolic" if info.issym() else "hard"
+                    raise _refuse(label, info.name, f"is a {kind} link; links are not accepted "
+                                  "because they can point outside the dataset. Replace it with a "
+                                  "copy of the file it points to.")
+                if not (info.isreg() or info.isdir()):
+                    raise _refuse(label, info.name, "is a special file (a device, pipe or "
+                                  "socket); only regular files and folders are accepted. Remove "
+                                  "it from the dataset.")
+                parts = names.add(info.name, is_dir=info.isdir())
+                target = into.joinpath(*parts)
+                if info.isdir():
+                    target.mkdir(parents=True, exist_ok=True)
+                    continue
+                declared += info.size
+                _check_size(label, info.name, declared, packed_bytes, limits, "declares")
+                target.parent.mkdir(parents=True, exist_ok=True)
+                stream.data_starts()
+                with _reading(label, info.name):
+                    member = tar.extractfile(info)
+                _copy(label, info.name, member, target, info.size, count)
+                stream.data_ends()
+                yield parts
+        if compressed:
+            with _reading(label):
+                while stream.read(CHUNK_BYTES):
+                    pass
+
+
+def _sniff(archive, label):
+    """The archive's format from its first bytes; names can lie and often do."""
+    with open(archive, "rb") as raw:
+        head = raw.read(512)
+    if head.startswith((b"PK\x03\x04", b"PK\x05\x06")):
+        return "zip"
+    if head.startswith(b"\x1f\x8b"):
+        return "tar.gz"
+    if head[257:262] == b"ustar":
+        return "tar"
+    raise _refuse(label, None, "is not a .zip, .tar or .tar.gz archive (judged by its contents, "
+                  "not its name), or it is truncated. Pack the dataset folder as one of those "
+                  "and upload it again.")
+
+
+def _wrapping_folder(unpacked):
+    """The one top folder that wraps a zipped dataset folder, if that is what was unpacked."""
+    entries = list(unpacked.iterdir())
+    if len(entries) == 1 and (entries[0] / "dataset_description.json").is_file():
+        return entries[0].name
     return None
 
 
-def extract_archive(archive_path, destination, *, limits=ExtractLimits()):
-    """Unpack a .tar, .tar.gz or .zip into ``destination``; returns the unpacked file paths.
+def extract_archive(archive_path, destination, *, limits=ExtractLimits(), label=None):
+    """Unpack a .zip, .tar or .tar.gz (told apart by content) into ``destination``, which must
+    be absent or an empty folder; returns the unpacked file paths.
 
-    Refuses absolute paths, '..', links, device files, duplicate names (also case-only ones),
-    and archives that exceed the file-count, size or compression-ratio limits.
+    ``label`` names the archive in error messages (default: its file name). A single top folder
+    holding dataset_description.json is unwrapped. On any error ``destination`` is left as it was.
     """
-    archive_path = Path(archive_path)
-    destination = Path(destination)
-    destination.mkdir(parents=True, exist_ok=True)
-    packed = max(1, archive_path.stat().st_size)
-    if zipfile.is_zipfile(archive_path):
-        members = _zip_members(archive_path)
-    elif tarfile.is_tarfile(archive_path):
-        members = _tar_members(archive_path)
-    else:
-        raise ArchiveError(f"{archive_path.name}: not a .zip or .tar(.gz) archive")
-    if len(members) > limits.max_files:
-        raise ArchiveError(f"archive holds {len(members)} files; the limit is {limits.max_files}")
-    total = sum(size for _, size in members)
-    if total > limits.max_total_bytes:
-        raise ArchiveError(f"archive unpacks to {total} bytes; the limit is "
-                           f"{limits.max_total_bytes} bytes")
-    if total / packed > limits.max_ratio:
-        raise ArchiveError(f"archive unpacks to {total / packed:.0f}× its size; the limit is "
-                           f"{limits.max_ratio:.0f}× (possible archive bomb)")
-    seen = {}
-    for name, _ in members:
-        _check_name(name, seen)
-    root = _strip_single_root([name for name, _ in members])
-    written = []
-    opener = _zip_read if zipfile.is_zipfile(archive_path) else _tar_read
-    for name, stream in opener(archive_path):
-        relative = PurePosixPath(name)
-        if root is not None:
-            relative = PurePosixPath(*relative.parts[1:])
-        target = destination.joinpath(*relative.parts)
-        target.parent.mkdir(parents=True, exist_ok=True)
-        budget = total + 1
-        with open(target, "wb") as sink:
-            while chunk := stream.read(1024 * 1024):
-                budget -= len(chunk)
-                if budget < 0:
-                    raise ArchiveError(f"{name}: unpacks larger than its header says")
-                sink.write(chunk)
-        written.append(target)
-    return written
+    archive_path, destination = Path(archive_path), Path(destination)
+    label = label or archive_path.name
+    if destination.exists() and (not destination.is_dir() or any(destination.iterdir())):
+        raise FileExistsError(f"{destination}: already exists and is not an empty folder; "
+                              "unpack into a new folder")
+    kind = _sniff(archive_path, label)
+    packed_bytes = max(1, archive_path.stat().st_size)
+    destination.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{destination.name}.unpacking-",
+                                    dir=destination.parent))
+    try:
+        if kind == "zip":
+            unpacked = list(_unpack_zip(archive_path, label, staging, limits, packed_bytes))
+        else:
+            unpacked = list(_unpack_tar(archive_path, label, staging, limits, packed_bytes,
+                                        compressed=kind == "tar.gz"))
+        top = _wrapping_folder(staging)
+        os.replace(staging / top if top else staging, destination)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    if top:
+        staging.rmdir()
+    return [destination.joinpath(*(parts[1:] if top else parts)) for parts in unpacked]
 
 
-def _zip_members(path):
-    members = []
-    with zipfile.ZipFile(path) as zf:
-        for info in zf.infolist():
-            if info.is_dir():
+def _walk(folder, label, names, relative=""):
+    """Entries under ``folder`` in sorted order as (path, name, is_dir); refuses links and
+    special files, and names that extraction would refuse."""
+    with os.scandir(folder) as listing:
+        entries = sorted(listing, key=lambda entry: entry.name)
+    for entry in entries:
+        name = relative + entry.name
+        if entry.is_symlink():
+            raise _refuse(label, name, "is a symbolic link; links are not uploaded because they "
+                          "can point outside the dataset. Replace it with a copy of the file.")
+        is_dir = entry.is_dir(follow_symlinks=False)
+        if not is_dir and not entry.is_file(follow_symlinks=False):
+            raise _refuse(label, name, "is a special file (a device, pipe or socket); only "
+                          "regular files and folders are uploaded. Remove it from the folder.")
+        names.add(name, is_dir=is_dir)
+        yield entry.path, name, is_dir
+        if is_dir:
+            yield from _walk(entry.path, label, names, name + "/")
+
+
+def pack_folder(folder, sink):
+    """Write ``folder`` to the binary file ``sink`` as an uncompressed tar stream.
+
+    Names are sorted and times, owners and permissions fixed, so one folder always packs to the
+    same bytes. Links, special files and names extraction would refuse stop the packing.
+    """
+    folder = Path(folder)
+    label = str(folder)
+    with tarfile.open(fileobj=sink, mode="w|", format=tarfile.PAX_FORMAT) as tar:
+        for path, name, is_dir in _walk(folder, label, _Names(label, ExtractLimits())):
+            info = tarfile.TarInfo(name)
+            info.mtime, info.uid, info.gid, info.uname, info.gname = 0, 0, 0, "", ""
+            if is_dir:
+                info.type, info.mode = tarfile.DIRTYPE, 0o755
+                tar.addfile(info)
                 continue
-            mode = info.external_attr >> 16
-            if stat.S_ISLNK(mode):
-                raise ArchiveError(f"{info.filename}: symbolic links are not allowed in an upload")
-            if mode and not stat.S_ISREG(mode):
-                raise ArchiveError(f"{info.filename}: only regular files may be uploaded")
-            members.append((info.filename, info.file_size))
-    return members
-
-
-def _tar_members(path):
-    members = []
-    with tarfile.open(path) as tar:
-        for info in tar:
-            if info.isdir():
-                continue
-            if info.issym() or info.islnk():
-                raise ArchiveError(f"{info.name}: links are not allowed in an upload")
-            if not info.isreg():
-                raise ArchiveError(f"{info.name}: only regular files may be uploaded "
-                                   "(found a device, pipe or other special file)")
-            members.append((info.name, info.size))
-    return members
-
-
-def _zip_read(path):
-    with zipfile.ZipFile(path) as zf:
-        for info in zf.infolist():
-            if not info.is_dir():
-                with zf.open(info) as stream:
-                    yield info.filename, stream
-
-
-def _tar_read(path):
-    with tarfile.open(path) as tar:
-        for info in tar:
-            if info.isreg():
-                yield info.name, tar.extractfile(info)
+            info.mode = 0o644
+            with open(path, "rb") as source:
+                info.size = os.fstat(source.fileno()).st_size
+                tar.addfile(info, source)
 
 
 def list_files(root):

@@ -63,11 +63,13 @@ def test_each_demo_site_is_accepted_and_indexed(demo_small, rail):
             assert recording.sfreq_hz == site_info.sfreq_hz
             assert recording.n_channels == site_info.n_channels
             assert recording.power_line_hz == site_info.power_line_hz
-            assert recording.rating == expected_ratings[(site_info.slug, recording.path)]
-            if recording.rating is not None:
-                bins = {"low": (1, 3), "moderate": (4, 6), "high": (7, 9)}[recording.level]
-                assert bins[0] <= recording.rating <= bins[1]
-        files = {item["path"] for item in version.manifest}
+            (block,) = recording.blocks.all()  # one block per run in the demo design
+            assert block.onset_s == 0 and block.duration_s == pytest.approx(recording.duration_s)
+            assert block.rating == expected_ratings[(site_info.slug, recording.path)]
+            if block.rating is not None:
+                bins = {"low": (1, 3), "moderate": (4, 6), "high": (7, 9)}[block.level]
+                assert bins[0] <= block.rating <= bins[1]
+        files = set(version.files.values_list("path", flat=True))
         on_disk = {p.relative_to(site_info.bids_root).as_posix()
                    for p in site_info.bids_root.rglob("*") if p.is_file()}
         assert files == on_disk

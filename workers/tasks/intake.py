@@ -99,7 +99,7 @@ def validate_upload(ctx):
         root = tmp / "dataset"
         incoming = tmp / "incoming"
         try:
-            extract_archive(archive, incoming)
+            extract_archive(archive, incoming, label=upload.label)
         except ArchiveError as exc:
             return _reject(ctx, upload, [_problem(upload.label, str(exc), "archive")], [])
         if upload.mode == UploadMode.ADDITION and parent is not None:
