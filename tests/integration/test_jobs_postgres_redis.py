@@ -63,7 +63,9 @@ def test_job_dispatched_on_commit_runs_reports_progress_and_finishes(stack, star
     assert seen_progress
     wait_for(lambda: state_of(job).state == JobState.DONE, 60, "the job to finish")
     assert job.attempts == 1 and job.progress_done == 6
-    assert job.result["threads"]["env"]["OPENBLAS_NUM_THREADS"] == "1"
+    threads = job.result["threads"]
+    assert threads["env"]["OPENBLAS_NUM_THREADS"] == "1" == threads["env"]["NUMBA_NUM_THREADS"]
+    assert threads["pools"] and all(pool["num_threads"] == 1 for pool in threads["pools"])
 
 
 def test_job_in_rolled_back_transaction_never_runs(stack, start_worker):
