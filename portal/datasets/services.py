@@ -109,12 +109,6 @@ def submit_path(source, *, site, study, user, mode=UploadMode.SNAPSHOT, via="com
         with open(target, "wb") as raw:
             sink = _HashingWriter(raw)
             if source.is_dir():
-                if mode == UploadMode.SNAPSHOT and not (
-                        source / "dataset_description.json").exists():
-                    raise UploadError(
-                        f"{source}: no dataset_description.json at the top; give the folder "
-                        "that is the root of the BIDS dataset", field="path",
-                    )
                 pack_folder(source, sink)
             elif source.is_file():
                 with open(source, "rb") as stream:

@@ -5,9 +5,15 @@ upload's report and its audit events."""
 import pytest
 
 from fixtures.broken_archives import BROKEN_ARCHIVES
+from fixtures.broken_bids import BROKEN_CASES, build_case
 from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import (
-    Block, DatasetVersion, Participant, Recording, UploadState, VersionFile,
+    Block,
+    DatasetVersion,
+    Participant,
+    Recording,
+    UploadState,
+    VersionFile,
 )
 from portal.datasets.services import submit_path
 from portal.jobs import runner
@@ -56,4 +62,35 @@ def test_broken_archive_is_rejected_and_leaves_nothing(case, lab, tmp_path, sett
         assert case.expect_member in problem["message"], problem["message"]
     for word in case.expect_words:
         assert word in problem["message"], problem["message"]
+    assert_nothing_stored(settings)
+
+
+@pytest.fixture(scope="module")
+def clean_dataset(tmp_path_factory):
+    from fixtures.broken_bids import build_clean_dataset
+
+    return build_clean_dataset(tmp_path_factory.mktemp("clean") / "dataset")
+
+
+def test_the_clean_base_dataset_is_accepted(lab, clean_dataset, django_capture_on_commit_callbacks):
+    upload = submit_and_validate(lab, clean_dataset, django_capture_on_commit_callbacks)
+    assert upload.state == UploadState.ACCEPTED, upload.errors
+
+
+@pytest.mark.parametrize("case", BROKEN_CASES, ids=[c.name for c in BROKEN_CASES])
+def test_broken_dataset_is_rejected_and_leaves_nothing(case, lab, clean_dataset, tmp_path,
+                                                       settings,
+                                                       django_capture_on_commit_callbacks):
+    """BIDS defects as the BIDS specification (schema in bidsschematools) defines them."""
+    broken = build_case(case, clean_dataset, tmp_path)
+    upload = submit_and_validate(lab, broken, django_capture_on_commit_callbacks)
+    assert upload.state == UploadState.REJECTED
+    matching = [
+        e for e in upload.errors
+        if case.expect_path in (e["path"] or "")
+        and (case.expect_field is None or e["field"] == case.expect_field)
+        and all(w.lower() in e["message"].lower() for w in case.expect_words)
+    ]
+    assert matching, f"no error names {case.expect_path}, {case.expect_field} and " \
+                     f"{case.expect_words}: {upload.errors}"
     assert_nothing_stored(settings)

@@ -100,10 +100,21 @@ def test_only_the_sites_data_manager_may_upload(demo_small, rail):
     assert not Upload.objects.exists()
 
 
-def test_folder_without_dataset_description_is_refused_before_storing(tmp_path, rail):
+def test_folder_without_dataset_description_is_rejected_by_validation(tmp_path, rail):
     study, sites, people = rail
     slug = next(iter(sites))
     (tmp_path / "sub-01").mkdir()
-    with pytest.raises(UploadError, match="no dataset_description.json"):
-        submit_path(tmp_path, site=sites[slug], study=study, user=people[slug])
+    (tmp_path / "sub-01" / "notes.txt").write_text("not a dataset")
+    upload = submit_path(tmp_path, site=sites[slug], study=study, user=people[slug])
+    validate(upload)
+    assert upload.state == "rejected"
+    assert any(e["path"] == "dataset_description.json" for e in upload.errors)
+    assert not DatasetVersion.objects.exists()
+
+
+def test_missing_source_is_refused_before_anything_is_stored(tmp_path, rail):
+    study, sites, people = rail
+    slug = next(iter(sites))
+    with pytest.raises(UploadError, match="no such file or folder"):
+        submit_path(tmp_path / "nowhere", site=sites[slug], study=study, user=people[slug])
     assert not Upload.objects.exists() and not Job.objects.exists()
