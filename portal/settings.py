@@ -72,6 +72,7 @@ INSTALLED_APPS = [
     "portal.jobs",
     "portal.studies",
     "portal.datasets",
+    "portal.quality",
     "portal.dashboard",
 ]
 

@@ -6,6 +6,7 @@ urlpatterns = [
     path("account/", include("portal.accounts.urls")),
     path("studies/", include("portal.studies.urls")),
     path("data/", include("portal.datasets.urls")),
+    path("quality/", include("portal.quality.urls")),
     path("jobs/", include("portal.jobs.urls")),
     path("audit/", include("portal.audit.urls")),
     path("api/v1/", include("portal.api_urls")),

@@ -23,6 +23,10 @@ KINDS = {
             "upload.validate", "validate and index an upload",
             "workers.tasks.intake:validate_upload", queue="intake",
         ),
+        JobKind("qc.version", "quality checks of a dataset version",
+                "workers.tasks.quality:run_version", queue="intake"),
+        JobKind("qc.recording", "quality checks of a recording",
+                "workers.tasks.quality:run_recording", queue="compute"),
     )
 }
 

@@ -15,7 +15,7 @@ class JobState(models.TextChoices):
 
 
 class Job(models.Model):
-    kind = models.CharField(max_length=40, choices=[(k, v.label) for k, v in KINDS.items()])
+    kind = models.CharField(max_length=40, help_text="One of portal.jobs.kinds.KINDS.")
     state = models.CharField(
         max_length=10, choices=JobState.choices, default=JobState.QUEUED, db_index=True
     )

@@ -32,6 +32,7 @@ from portal.datasets.services import (
     temporary_dir,
 )
 from portal.jobs.services import JobError
+from portal.quality.services import start_round
 from portal.studies.models import current_protocol
 from workers.archive import ArchiveError, extract_archive, list_files
 
@@ -182,6 +183,7 @@ def _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, resul
             ])
         finish_upload(upload, errors=[], warnings=result["warnings"])
         discard_staging_on_commit(upload)
+        start_round(version)
         job.result = {"dataset_version": version.pk, "recordings": len(result["recordings"]),
                       "files": len(files)}
         record(

@@ -1,0 +1,178 @@
+"""Quality pages: a version's table, a recording's checks, overrides, plots and exports."""
+
+import tempfile
+import zipfile
+from pathlib import Path
+
+from django.contrib import messages
+from django.http import FileResponse, Http404, HttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.views.decorators.http import require_POST
+
+from portal.accounts.permissions import Action, access, can, require
+from portal.audit.events import record
+from portal.datasets.models import Recording
+from portal.datasets.views import visible_version
+from portal.quality import plots
+from portal.quality.derivatives import write_derivative
+from portal.quality.forms import OverrideForm, RerunForm
+from portal.quality.models import QCRound, QCRun, Verdict
+from portal.quality.services import (
+    effective_channels,
+    latest_overrides,
+    progress,
+    runs_of,
+    set_override,
+    start_round,
+)
+
+VERDICT_ORDER = {Verdict.FAIL: 0, Verdict.REVIEW: 1, Verdict.PASS: 2, None: 3}
+
+
+def visible_round(user, round_id):
+    qc_round = get_object_or_404(
+        QCRound.objects.select_related("version__site", "version__study"), pk=round_id)
+    if not can(user, Action.VIEW, site=qc_round.version.site):
+        raise Http404("no such quality round")
+    return qc_round
+
+
+@access("checked")
+def version_quality(request, version_id):
+    version = visible_version(request.user, version_id)
+    rounds = list(version.qc_rounds.all())
+    if not rounds:
+        return render(request, "quality/version.html", {"version": version, "rounds": []})
+    chosen = request.GET.get("round")
+    qc_round = next((r for r in rounds if str(r.pk) == chosen), rounds[0])
+    return redirect("quality:round", round_id=qc_round.pk)
+
+
+@access("checked")
+def round_detail(request, round_id):
+    qc_round = visible_round(request.user, round_id)
+    version = qc_round.version
+    runs = runs_of(qc_round)
+    rows = []
+    for recording in version.recordings.select_related("participant"):
+        run = runs.get(recording.sha256)
+        rows.append({"recording": recording, "run": run,
+                     "verdict": run.verdict if run else None})
+    sort = request.GET.get("sort", "verdict")
+    if sort == "verdict":
+        rows.sort(key=lambda r: (VERDICT_ORDER[r["verdict"]], r["recording"].path))
+    elif sort == "bad":
+        rows.sort(key=lambda r: -(r["run"].n_bad_channels if r["run"] else -1))
+    else:
+        rows.sort(key=lambda r: r["recording"].path)
+    done, total = progress(qc_round)
+    may_run = can(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
+    return render(request, "quality/round.html", {
+        "round": qc_round, "version": version, "rows": rows, "done": done, "total": total,
+        "percent": round(100 * done / total) if total else 100, "sort": sort,
+        "rounds": version.qc_rounds.all(), "may_run": may_run,
+        "rerun_form": RerunForm(initial_settings=qc_round.settings) if may_run else None,
+        "counts": {v: sum(1 for r in rows if r["verdict"] == v) for v in Verdict.values},
+    })
+
+
+@access("checked")
+@require_POST
+def rerun(request, version_id):
+    version = visible_version(request.user, version_id)
+    require(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
+    latest = version.qc_rounds.first()
+    base = latest.settings if latest else {}
+    form = RerunForm(request.POST, initial_settings=base)
+    if not form.is_valid():
+        messages.error(request, "Give every threshold as a number ≥ 0.")
+        return redirect("quality:version", version_id=version.pk)
+    qc_round, created = start_round(version, user=request.user,
+                                    qc_settings={**base, **form.cleaned_data})
+    messages.info(request, "Checks started with these settings." if created else
+                  "These settings were already used: showing that round.")
+    return redirect("quality:round", round_id=qc_round.pk)
+
+
+def _recording_in_round(user, round_id, recording_id):
+    qc_round = visible_round(user, round_id)
+    recording = get_object_or_404(Recording, pk=recording_id, version=qc_round.version)
+    return qc_round, recording
+
+
+@access("checked")
+def recording_quality(request, round_id, recording_id):
+    qc_round, recording = _recording_in_round(request.user, round_id, recording_id)
+    site = qc_round.version.site
+    run = runs_of(qc_round).get(recording.sha256)
+    overrides = latest_overrides(site, recording.sha256)
+    channels = effective_channels(run, overrides) if run else {}
+    may_override = can(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
+    form = OverrideForm(channels=recording.channel_names) if may_override else None
+    return render(request, "quality/recording.html", {
+        "round": qc_round, "recording": recording, "run": run, "channels": channels,
+        "form": form, "overrides": overrides,
+        "history": list(recording_overrides(site, recording.sha256)),
+    })
+
+
+def recording_overrides(site, sha256):
+    from portal.quality.models import ChannelOverride
+
+    return ChannelOverride.objects.filter(site=site, recording_sha256=sha256).select_related(
+        "created_by")[:50]
+
+
+@access("checked")
+@require_POST
+def override(request, round_id, recording_id):
+    qc_round, recording = _recording_in_round(request.user, round_id, recording_id)
+    site = qc_round.version.site
+    require(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
+    form = OverrideForm(request.POST, channels=recording.channel_names)
+    if form.is_valid():
+        try:
+            set_override(site=site, recording=recording, user=request.user,
+                         **form.cleaned_data)
+            messages.success(request, f"{form.cleaned_data['channel']} is now "
+                                      f"{form.cleaned_data['status']} for later steps.")
+        except ValueError as exc:
+            messages.error(request, str(exc))
+    else:
+        messages.error(request, "Choose a channel, good or bad, and say why.")
+    return redirect("quality:recording", round_id=qc_round.pk, recording_id=recording.pk)
+
+
+@access("checked")
+def plot(request, run_id, kind):
+    run = get_object_or_404(QCRun.objects.select_related("site"), pk=run_id)
+    if not can(request.user, Action.VIEW, site=run.site):
+        raise Http404("no such plot")
+    if kind not in plots.KINDS:
+        raise Http404("no such plot")
+    bands = request.GET.get("study")
+    svg = plots.render(run, kind, study_slug=bands)
+    response = HttpResponse(svg, content_type="image/svg+xml")
+    response["Cache-Control"] = "private, max-age=86400"
+    return response
+
+
+@access("checked")
+def download_derivative(request, round_id):
+    qc_round = visible_round(request.user, round_id)
+    version = qc_round.version
+    require(request.user, Action.DOWNLOAD, site=version.site)
+    folder = f"{version.site.slug}-v{version.number}-qc{qc_round.pk}"
+    spool = tempfile.TemporaryFile()
+    with tempfile.TemporaryDirectory(prefix="cairn-qc-export-") as tmp:
+        root = Path(tmp) / folder
+        write_derivative(qc_round, root)
+        with zipfile.ZipFile(spool, "w", compression=zipfile.ZIP_DEFLATED) as archive:
+            for path in sorted(root.rglob("*")):
+                if path.is_file():
+                    archive.write(path, f"{folder}/{path.relative_to(root).as_posix()}")
+    spool.seek(0)
+    record("download", actor=request.user, site=version.site, study=version.study,
+           target=qc_round, summary=f"downloaded the quality derivative of {version}")
+    return FileResponse(spool, as_attachment=True, filename=f"{folder}.zip")
+
