@@ -18,6 +18,7 @@ def _test_settings(request):
     scratch = request.getfixturevalue("tmp_path")
     settings.BLOB_ROOT = scratch / "blobs"
     settings.STAGING_ROOT = scratch / "staging"
+    settings.VAR_DIR = scratch
 
 
 @pytest.fixture(scope="session")

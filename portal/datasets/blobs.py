@@ -58,6 +58,28 @@ def file_sha256(path):
         return hash_stream(stream)[0]
 
 
+def adopt_file(path):
+    """Store a file that may be consumed (a freshly unpacked upload): it is moved into the
+    store, not copied, when it lies on the same disk. Returns (sha256, size)."""
+    path = Path(path)
+    with open(path, "rb") as stream:
+        sha256, size = hash_stream(stream)
+    target = blob_path(sha256)
+    if target.exists():
+        path.unlink()
+        return sha256, size
+    target.parent.mkdir(parents=True, exist_ok=True)
+    try:
+        os.replace(path, target)
+    except OSError:  # another disk: copy instead
+        with open(path, "rb") as stream:
+            put_stream(stream)
+        path.unlink()
+        return sha256, size
+    target.chmod(0o444)
+    return sha256, size
+
+
 def put_file(path):
     with open(path, "rb") as stream:
         return put_stream(stream)

@@ -140,7 +140,7 @@ def validate_upload(ctx):
             scrubbed = scrub_dataset(root)
         files = {}
         for relative in list_files(root):
-            files[relative] = blobs.put_file(root / relative)
+            files[relative] = blobs.adopt_file(root / relative)
     parent_files = {f.path: (f.sha256, f.bytes) for f in parent.files.all()} if parent else {}
     _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result)
 
