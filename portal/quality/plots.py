@@ -66,7 +66,8 @@ def _status(info):
 
 
 def draw_spectrum(result, protocol):
-    """Power spectrum per channel on a log scale, bands shaded, the mains frequency marked."""
+    """Power spectrum per channel in decibels (a log scale), analysis bands shaded, the mains
+    frequency marked, bad channels drawn on top and named."""
     figure = _figure(8, 4)
     axes = figure.add_subplot()
     psd = result.get("psd") or {}
@@ -75,10 +76,11 @@ def draw_spectrum(result, protocol):
         axes.axvspan(band["l_freq_hz"], band["h_freq_hz"], color=BAND_SHADES[i % 2], zorder=0)
         axes.text((band["l_freq_hz"] + band["h_freq_hz"]) / 2, 1.0, band["name"],
                   transform=axes.get_xaxis_transform(), ha="center", va="bottom", fontsize=8)
-    for name, values in (psd.get("log10_power") or {}).items():
+    for name, values in (psd.get("channels") or {}).items():
         info = result["channels"].get(name, {"status": "good"})
         bad = info["status"] == "bad"
-        axes.plot(freqs, [10 ** v for v in values], color=_status(info),
+        points = [(f, v) for f, v in zip(freqs, values, strict=False) if v is not None]
+        axes.plot([f for f, _ in points], [v for _, v in points], color=_status(info),
                   linewidth=1.4 if bad else 0.6, alpha=1.0 if bad else 0.5,
                   label=name if bad else None, zorder=3 if bad else 2)
     mains = result.get("power_line_hz")
@@ -86,9 +88,8 @@ def draw_spectrum(result, protocol):
         axes.axvline(mains, color="#1f2421", linestyle="--", linewidth=0.8)
         axes.text(mains, 0.02, f" mains {mains:g} Hz", transform=axes.get_xaxis_transform(),
                   fontsize=8)
-    axes.set_yscale("log")
     axes.set_xlabel("frequency (Hz)")
-    axes.set_ylabel("power (V²/Hz)")
+    axes.set_ylabel(f"power ({psd.get('unit', 'dB')})")
     if any(c["status"] == "bad" for c in result["channels"].values()):
         axes.legend(title="bad channels", fontsize=7, title_fontsize=8, loc="upper right")
     return _svg(figure)
@@ -105,8 +106,9 @@ def draw_sensors(result, protocol):
     if names:
         xy = np.array([positions[n][:2] for n in names], dtype=float)
         radius = max(np.abs(xy).max(), 1e-6) * 1.15
-        axes.add_patch(__import__("matplotlib").patches.Circle((0, 0), radius, fill=False,
-                                                                color="#8d918c"))
+        from matplotlib.patches import Circle
+
+        axes.add_patch(Circle((0, 0), radius, fill=False, color="#8d918c"))
         axes.plot([-0.1 * radius, 0, 0.1 * radius], [radius, 1.1 * radius, radius],
                   color="#8d918c")
         for (x, y), name in zip(xy, names, strict=True):

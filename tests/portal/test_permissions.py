@@ -13,10 +13,14 @@ from django.urls import URLPattern, URLResolver, get_resolver, reverse
 from portal.accounts.models import ApiToken
 from portal.datasets import blobs
 from portal.datasets.models import (
-    DatasetVersion, Participant, Recording, Upload, VersionFile,
+    DatasetVersion,
+    Participant,
+    Recording,
+    Upload,
+    VersionFile,
 )
-from portal.quality.models import QCRound, QCRun
 from portal.jobs.models import Job
+from portal.quality.models import QCRound, QCRun
 
 pytestmark = pytest.mark.django_db
 
@@ -61,7 +65,9 @@ def fill(consortium, site_key, study_key):
         code_version="test", settings={}, verdict="pass", result={
             "channels": {"Cz": {"status": "good", "reasons": [], "metrics": {}}},
             "segments": [], "rejected_share": 0.0, "verdict": "pass", "verdict_reasons": [],
-            "psd": {"freqs_hz": [1.0, 2.0], "log10_power": {"Cz": [-11.0, -11.5]}},
+            "psd": {"freqs_hz": [1.0, 2.0], "unit": "dB re 1 µV²/Hz",
+                    "channels": {"Cz": [10.0, 8.5]}},
+            "positions": {"Cz": [0.0, 0.0, 0.09]},
         })
     return {"study_slug": study.slug, "site_slug": site.slug, "upload_id": upload.pk,
             "job_id": job.pk, "token_id": token.pk, "version_id": version.pk,

@@ -131,3 +131,10 @@ def test_pages_and_plots_render_and_plots_are_cached(client, checked, settings):
     cached = sorted((settings.VAR_DIR / "plots").glob("*.svg"))
     client.get(reverse("quality:plot", args=[run.pk, "spectrum"]))
     assert sorted((settings.VAR_DIR / "plots").glob("*.svg")) == cached
+
+
+def test_portal_and_checks_agree_on_the_code_version():
+    from portal.quality.services import QC_CODE_VERSION
+    from workers.qc import CODE_VERSION
+
+    assert QC_CODE_VERSION == CODE_VERSION

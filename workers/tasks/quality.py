@@ -69,6 +69,17 @@ def electrode_positions(raw):
     return {name: tuple(float(v) for v in xyz) for name, xyz in positions.items()} or None
 
 
+def sensor_positions(ch_names, positions):
+    """Known positions (m) by channel name, for the sensor plot."""
+    import numpy as np
+
+    from workers.qc.positions import resolve_positions
+
+    xyz = resolve_positions(ch_names, positions)
+    return {name: [round(float(v), 5) for v in row]
+            for name, row in zip(ch_names, xyz, strict=True) if np.all(np.isfinite(row))}
+
+
 def run_recording(ctx):
     import mne
     import mne_bids
@@ -104,6 +115,7 @@ def run_recording(ctx):
     result = run_qc(raw, settings=settings, power_line_hz=recording.power_line_hz or 50.0,
                     site_status=marked, positions=positions, random_state=0)
     summary = result.as_dict()
+    summary["positions"] = sensor_positions(raw.ch_names, positions)
     n_bad = sum(1 for c in summary["channels"].values() if c["status"] == "bad")
     with ctx.finish() as job:
         run, created = QCRun.objects.get_or_create(**key, defaults={
