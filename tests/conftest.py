@@ -1,6 +1,10 @@
 """Shared fixtures: people and sites for permission tests, and the small demo consortium."""
 
+from pathlib import Path
+
 import pytest
+
+from tests.helpers import PYEDFLIB_MEAS_DATE
 
 
 @pytest.fixture(autouse=True)
@@ -27,6 +31,25 @@ def demo_small(tmp_path_factory):
     from fixtures.demo import generate
 
     return generate(tmp_path_factory.mktemp("demo-small"), scale="small", seed=7)
+
+
+@pytest.fixture(scope="session")
+def pyedflib_bids(tmp_path_factory):
+    """pyedflib's shipped ``test_generator.edf`` (11 signals, 200 Hz, 600 s) written by
+    mne-bids as sub-01's only recording of a BIDS tree; (root, data file's relative path)."""
+    pyedflib = pytest.importorskip("pyedflib")
+    import mne
+    import mne_bids
+
+    source = Path(pyedflib.__file__).parent / "data" / "test_generator.edf"
+    root = tmp_path_factory.mktemp("pyedflib") / "bids"
+    raw = mne.io.read_raw_edf(source, verbose="ERROR")
+    raw.set_meas_date(PYEDFLIB_MEAS_DATE)
+    path = mne_bids.BIDSPath(root=root, subject="01", task="generator", datatype="eeg",
+                             suffix="eeg", extension=".edf")
+    mne_bids.write_raw_bids(raw, path, format="EDF", allow_preload=True, overwrite=True,
+                            verbose="ERROR")
+    return root, path.fpath.relative_to(root).as_posix()
 
 
 @pytest.fixture

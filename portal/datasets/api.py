@@ -37,6 +37,14 @@ def _json_body(request):
     return data
 
 
+def _own_upload(request, upload_id):
+    """The upload if the user may send data for it, else (None, a 403 answer); 404 if unseen."""
+    upload = visible_upload(request.user, upload_id)
+    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
+        return None, _error(UploadError("you may not upload for this site"), status=403)
+    return upload, None
+
+
 def upload_json(upload):
     version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
     job = upload_job(upload)
@@ -87,9 +95,9 @@ def upload_status(request, upload_id):
 @require_http_methods(["PUT"])
 def upload_chunk(request, upload_id):
     """PUT raw bytes to …/chunks/?offset=N (Content-Length required). Repeats are harmless."""
-    upload = visible_upload(request.user, upload_id)
-    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
-        return _error(UploadError("you may not upload for this site"), status=403)
+    upload, refusal = _own_upload(request, upload_id)
+    if refusal:
+        return refusal
     try:
         offset = int(request.GET.get("offset", ""))
         length = int(request.META.get("CONTENT_LENGTH") or -1)
@@ -109,9 +117,9 @@ def upload_chunk(request, upload_id):
 @require_http_methods(["POST"])
 def finish_upload(request, upload_id):
     """POST {"sha256": "<hex>"}: checks completeness and the checksum, then queues validation."""
-    upload = visible_upload(request.user, upload_id)
-    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
-        return _error(UploadError("you may not upload for this site"), status=403)
+    upload, refusal = _own_upload(request, upload_id)
+    if refusal:
+        return refusal
     try:
         data = _json_body(request)
         upload = finish_chunked(upload.pk, sha256=str(data.get("sha256", "")),

@@ -7,20 +7,13 @@ and gamma 30–40 Hz inside a 0.5–40 Hz analysis pass-band.
 
 import copy
 
+from workers.bids.ratings import DEFAULT_SCALE
+
 DEFAULT_PROTOCOL = {
     "tasks": ["rest", "task"],
     "conditions": ["rest", "low", "moderate", "high"],
-    "rating_scale": {
-        "name": "workload rating",
-        "column": "workload_rating",
-        "min": 1,
-        "max": 9,
-        "levels": [
-            {"name": "low", "min": 1, "max": 3},
-            {"name": "moderate", "min": 4, "max": 6},
-            {"name": "high", "min": 7, "max": 9},
-        ],
-    },
+    "rating_scale": {"name": "workload rating", "column": "workload_rating",
+                     **copy.deepcopy(DEFAULT_SCALE)},
     # The column of each session's *_scans.tsv that names a recording's condition.
     "condition_column": "difficulty",
     # Where ratings live: "scans" (a column of *_scans.tsv, per recording) or "phenotype"

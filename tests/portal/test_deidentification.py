@@ -6,9 +6,7 @@ Source: pyedflib 0.1.42 ships ``pyedflib/data/test_generator.edf``, whose EDF+ p
 it into a BIDS tree and mne carries that field along.
 """
 
-import datetime
 import hashlib
-from pathlib import Path
 
 import pytest
 
@@ -21,25 +19,7 @@ from portal.studies.models import current_protocol, save_protocol
 from tests.helpers import member
 from workers.bids.headers import read_edf_header
 
-pyedflib = pytest.importorskip("pyedflib")
-SOURCE = Path(pyedflib.__file__).parent / "data" / "test_generator.edf"
-
 pytestmark = pytest.mark.django_db
-
-
-@pytest.fixture(scope="module")
-def wrapped(tmp_path_factory):
-    import mne
-    import mne_bids
-
-    root = tmp_path_factory.mktemp("pyedflib") / "bids"
-    raw = mne.io.read_raw_edf(SOURCE, verbose="ERROR")
-    raw.set_meas_date(datetime.datetime(2011, 4, 4, 12, 57, 2, tzinfo=datetime.UTC))
-    path = mne_bids.BIDSPath(root=root, subject="01", task="generator", datatype="eeg",
-                             suffix="eeg", extension=".edf")
-    mne_bids.write_raw_bids(raw, path, format="EDF", allow_preload=True, overwrite=True,
-                            verbose="ERROR")
-    return root, path.fpath.relative_to(root).as_posix()
 
 
 @pytest.fixture
@@ -60,22 +40,22 @@ def ingest(lab, root, capture):
     return upload
 
 
-def test_identifying_header_is_refused_by_default(lab, wrapped,
+def test_identifying_header_is_refused_by_default(lab, pyedflib_bids,
                                                   django_capture_on_commit_callbacks):
-    root, relpath = wrapped
+    root, relpath = pyedflib_bids
     upload = ingest(lab, root, django_capture_on_commit_callbacks)
     assert upload.state == "rejected"
     assert any(e["path"] == relpath and "30-JUN-1969" in e["message"] for e in upload.errors), \
         upload.errors
 
 
-def test_scrubbed_copy_is_kept_with_the_originals_hash(lab, wrapped,
+def test_scrubbed_copy_is_kept_with_the_originals_hash(lab, pyedflib_bids,
                                                        django_capture_on_commit_callbacks,
                                                        settings):
     study = lab[0]
     protocol = current_protocol(study).data
     save_protocol(study, {**protocol, "deidentification": "scrub"}, user=None, note="scrub")
-    root, relpath = wrapped
+    root, relpath = pyedflib_bids
     original = hashlib.sha256((root / relpath).read_bytes()).hexdigest()
     upload = ingest(lab, root, django_capture_on_commit_callbacks)
     assert upload.state == "accepted", upload.errors

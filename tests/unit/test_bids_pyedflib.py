@@ -12,34 +12,18 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from tests.helpers import PYEDFLIB_MEAS_DATE
 from workers.bids.deid import scrub_dataset
 from workers.bids.headers import read_edf_header
 from workers.bids.validate import validate_dataset
 
 pyedflib = pytest.importorskip("pyedflib")
 SOURCE = Path(pyedflib.__file__).parent / "data" / "test_generator.edf"
-MEAS_DATE = datetime.datetime(2011, 4, 4, 12, 57, 2, tzinfo=datetime.UTC)
-
-
-@pytest.fixture(scope="module")
-def wrapped(tmp_path_factory):
-    """The test file written as sub-01's only recording of a BIDS dataset."""
-    import mne
-    import mne_bids
-
-    root = tmp_path_factory.mktemp("pyedflib") / "bids"
-    raw = mne.io.read_raw_edf(SOURCE, verbose="ERROR")
-    raw.set_meas_date(MEAS_DATE)
-    bids_path = mne_bids.BIDSPath(root=root, subject="01", task="generator", datatype="eeg",
-                                  suffix="eeg", extension=".edf")
-    mne_bids.write_raw_bids(raw, bids_path, format="EDF", allow_preload=True, overwrite=True,
-                            verbose="ERROR")
-    return root, bids_path.fpath.relative_to(root).as_posix()
 
 
 @pytest.fixture
-def copy(wrapped, tmp_path):
-    root, relpath = wrapped
+def copy(pyedflib_bids, tmp_path):
+    root, relpath = pyedflib_bids
     target = tmp_path / "bids"
     shutil.copytree(root, target)
     return target, relpath
@@ -98,7 +82,7 @@ def test_birth_date_is_refused_then_scrubbed(copy):
     scrubbed = mne.io.read_raw_edf(root / relpath, preload=True, verbose="ERROR")
     assert scrubbed.ch_names == original.ch_names
     np.testing.assert_array_equal(scrubbed.get_data(), original.get_data())
-    assert scrubbed.info["meas_date"] == MEAS_DATE
+    assert scrubbed.info["meas_date"] == PYEDFLIB_MEAS_DATE
     assert original.info["subject_info"]["birthday"] == datetime.date(1969, 6, 30)
     assert "birthday" not in scrubbed.info["subject_info"]
 
