@@ -29,7 +29,8 @@ pytestmark = pytest.mark.filterwarnings("ignore")
 DURATION_S = 60.0
 RECORDING_SEEDS = (301, 302)
 # Our settings set to PREP's values where our defaults differ (see QCSettings).
-PREP_VALUES = QCSettings(correlation_bad_window_share=0.01, deviation_ratio_min=1.0,
+PREP_VALUES = QCSettings(correlation_window_s=1.0, correlation_bad_window_share=0.01,
+                         deviation_ratio_min=1.0,
                          deviation_factor_max=0.0, hf_ratio_min=1.0,
                          check_predictability=False)
 
@@ -116,7 +117,7 @@ def test_agreement_with_pyprep(faulty_recordings):
             "dropout": reference["bad_by_flat"] + reference["bad_by_nan"]
             + reference["bad_by_dropout"],
             "deviation": reference["bad_by_deviation"],
-            "hf_noise": reference["bad_by_hf_noise"],
+            "high_frequency": reference["bad_by_hf_noise"],
             "correlation": reference["bad_by_correlation"],
         }
         for check, names in theirs.items():
@@ -194,7 +195,9 @@ def test_muscle_segments_agree_with_mne(demo_raws):
     """Source: mne 1.13 ``mne.preprocessing.annotate_muscle_zscore`` (threshold 4, its
     default; band 30-100 Hz, our muscle band). On the small-demo recordings sampled at 250 Hz
     or more: at least 80 % of mne's muscle time lies in our muscle segments, at least 80 % of
-    ours lies within one window (1 s) of mne's, and where mne finds none we find none."""
+    ours lies within one window (1 s) of mne's, and where mne finds none we find none. mne
+    intervals shorter than 0.25 s are left out: they are below the resolution of our 1 s
+    windows, and mne's summed z-score crosses 4 that briefly in clean recordings too."""
     n_compared = 0
     for record, raw, result in demo_raws:
         if raw.info["sfreq"] < 250:
@@ -202,7 +205,8 @@ def test_muscle_segments_agree_with_mne(demo_raws):
         annotations, _ = mne.preprocessing.annotate_muscle_zscore(
             raw, threshold=4, filter_freq=(30.0, 100.0), verbose="ERROR"
         )
-        theirs = _intervals([(a["onset"], a["onset"] + a["duration"]) for a in annotations])
+        theirs = _intervals([(a["onset"], a["onset"] + a["duration"]) for a in annotations
+                             if a["duration"] >= 0.25])
         ours = _segments_with(result, "muscle activity")
         if not theirs:
             assert ours == [], record["path"]
@@ -245,8 +249,9 @@ def test_no_signal_agrees_with_mne_flat_annotation():
     least ``min_duration`` whose sample-to-sample steps stay at or below ``flat``), which
     is our no-signal definition; pyprep 0.9.0 does not report zero stretches inside a
     channel as dropout once its filters have smeared them. Per channel, mne's flat share of
-    time equals ours within two samples, and its bad channels (flat for at least 1 %) are
-    our no-signal channels."""
+    time equals ours within one sample per flat run (its annotations span the steps between
+    the samples of a run, one fewer than the samples), and its bad channels (flat for at
+    least 1 %) are our no-signal channels."""
     raw, _ = _clean(SITES[1], seed=303)
     data = raw.get_data()
     sfreq_hz = raw.info["sfreq"]
@@ -268,8 +273,10 @@ def test_no_signal_agrees_with_mne_flat_annotation():
         )
         flat_time = sum(a["duration"] for a in annotations)
         shares[name] = 1.0 if bads else flat_time / (raw.n_times / sfreq_hz)
+    runs = {raw.ch_names[10]: 3, raw.ch_names[20]: 1}
     for name, channel in result.channels.items():
-        assert abs(channel.metrics["dropout"] - shares[name]) <= 2 / raw.n_times, name
+        tolerance = runs.get(name, 0) / raw.n_times + 1e-12
+        assert abs(channel.metrics["dropout"] - shares[name]) <= tolerance, name
     _, bads = mne.preprocessing.annotate_amplitude(
         raw, flat=flat_v, min_duration=settings.dropout_min_s,
         bad_percent=100 * settings.dropout_share_max, verbose="ERROR",
