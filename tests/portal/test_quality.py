@@ -138,3 +138,36 @@ def test_portal_and_checks_agree_on_the_code_version():
     from workers.qc import CODE_VERSION
 
     assert QC_CODE_VERSION == CODE_VERSION
+
+
+def test_channels_the_site_marked_bad_are_honoured(demo_small, tmp_path, client):
+    """A `status` of bad in *_channels.tsv (BIDS specification) is kept as 'marked by site'."""
+    info = demo_small.sites[0]
+    root = tmp_path / info.slug
+    shutil.copytree(info.bids_root, root)
+    channels_tsv = next(root.glob("sub-01/ses-01/eeg/*task-rest_channels.tsv"))
+    lines = channels_tsv.read_text().splitlines()
+    header = lines[0].split("\t")
+    row = lines[1].split("\t")
+    marked = row[header.index("name")]
+    row[header.index("status")] = "bad"
+    if "status_description" in header:
+        row[header.index("status_description")] = "reference electrode came off"
+    channels_tsv.write_text("\n".join([lines[0], "\t".join(row), *lines[2:]]) + "\n")
+    study, _ = add_study("rail", name="Rail")
+    site, _ = add_site(info.slug, study_slug="rail", name=info.name)
+    manager, _ = member("dm", role="data_manager", site_slug=info.slug)
+    upload = submit_path(root, site=site, study=study, user=manager)
+    run_pending("upload.validate")
+    run_pending("qc.version")
+    run_pending("qc.recording")
+    upload.refresh_from_db()
+    recording = upload.version.recordings.get(path=channels_tsv.relative_to(root).as_posix()
+                                              .replace("_channels.tsv", "_eeg.edf"))
+    run = QCRun.objects.get(recording_sha256=recording.sha256)
+    channel = run.result["channels"][marked]
+    assert channel["status"] == "bad" and channel["marked_by_site"]
+    qc_round = QCRound.objects.get(version=upload.version)
+    client.force_login(manager)
+    page = client.get(reverse("quality:recording", args=[qc_round.pk, recording.pk]))
+    assert "marked by site" in page.content.decode()
