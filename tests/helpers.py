@@ -14,3 +14,36 @@ def member(username, *, role, site_slug=None):
     user, password = add_member(username, role=role, site_slug=site_slug)
     AccountFlags.require_new_password(user, required=False)
     return user, password
+
+
+def _repo():
+    from pathlib import Path
+
+    return Path(__file__).resolve().parents[1]
+
+
+def examples_location():
+    import os
+    from pathlib import Path
+
+    return Path(os.environ.get("CAIRN_BIDS_EXAMPLES",
+                               _repo().parent / "shared" / "reference" / "bids-examples"))
+
+
+def bids_examples():
+    """The BIDS standard's example datasets (beside the checkout, or CAIRN_BIDS_EXAMPLES).
+
+    Missing, the tests that need them skip — or fail under CAIRN_REQUIRE_SERVICES=1, as in
+    ``make test``, so the suite cannot pass without its outside references.
+    """
+    import os
+
+    import pytest
+
+    path = examples_location()
+    if not path.is_dir():
+        message = f"the BIDS example datasets are not at {path} (set CAIRN_BIDS_EXAMPLES)"
+        if os.environ.get("CAIRN_REQUIRE_SERVICES") == "1":
+            pytest.fail(message)
+        pytest.skip(message)
+    return path

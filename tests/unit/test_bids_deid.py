@@ -2,17 +2,15 @@
 scrubbing them in place."""
 
 import shutil
-from pathlib import Path
 
 import pytest
 
 from fixtures.broken_bids import STEM_RUN1, build_clean_dataset
+from tests.helpers import bids_examples
 from workers.bids.deid import edf_findings, identifier_columns, scrub_dataset
 from workers.bids.headers import read_edf_header
 from workers.bids.readers import read_tsv
 from workers.bids.validate import validate_dataset
-
-EXAMPLES = Path(__file__).resolve().parents[3] / "shared" / "reference" / "bids-examples"
 
 
 @pytest.fixture(scope="module")
@@ -125,9 +123,7 @@ def test_example_participants_hold_no_identifiers(name):
     """The bids-examples' participants.tsv files (age, sex, handedness, group) give no
     findings (bids-examples: eeg_cbm CC-BY 4.0, eeg_matchingpennies PDDL 1.0, eeg_rishikesh
     CC0)."""
-    path = EXAMPLES / name / "participants.tsv"
-    if not path.is_file():
-        pytest.skip("bids-examples not present")
+    path = bids_examples() / name / "participants.tsv"
     assert identifier_columns(read_tsv(path)) == {}
 
 

@@ -7,18 +7,18 @@ placeholders, so these tests validate with ``read_data=False``.
 """
 
 import json
-from pathlib import Path
 
 import pytest
 from bids_validator import BIDSValidator
 
+from tests.helpers import bids_examples, examples_location
 from workers.bids.index import pybids_agreement
 from workers.bids.names import check_path, is_eeg_data, walk_dataset
 from workers.bids.report import Report
 from workers.bids.sidecars import Tree
 from workers.bids.validate import validate_dataset
 
-EXAMPLES = Path(__file__).resolve().parents[3] / "shared" / "reference" / "bids-examples"
+EXAMPLES = examples_location()
 NAMES = ("eeg_cbm", "eeg_matchingpennies", "eeg_rishikesh")
 
 # Warnings these examples legitimately raise (each reviewed against the files):
@@ -37,7 +37,9 @@ LEGITIMATE_WARNINGS = {
     "eeg_rishikesh": {"ratings.missing", "sidecar.recommended"},
 }
 
-pytestmark = pytest.mark.skipif(not EXAMPLES.is_dir(), reason="bids-examples not present")
+@pytest.fixture(autouse=True)
+def _examples_present():
+    bids_examples()
 
 
 @pytest.fixture(scope="module")
