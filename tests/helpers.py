@@ -47,3 +47,23 @@ def bids_examples():
             pytest.fail(message)
         pytest.skip(message)
     return path
+
+
+def demo_recordings(manifest):
+    """Yield (answer-key record, raw read with mne-bids and loaded, mains frequency in Hz)
+    for every recording of a generated demo consortium, in answer-key order."""
+    import json
+    import warnings
+
+    import mne_bids
+
+    key = json.loads(manifest.answer_key.read_text(encoding="utf-8"))
+    mains_hz = {site["slug"]: site["power_line_hz"] for site in key["sites"]}
+    for record in key["recordings"]:
+        path = manifest.out_dir / record["bids_root"] / record["path"]
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            raw = mne_bids.read_raw_bids(mne_bids.get_bids_path_from_fname(path),
+                                         verbose="ERROR")
+        raw.load_data(verbose="ERROR")
+        yield record, raw, mains_hz[record["site"]]

@@ -7,11 +7,8 @@ faulty: at the demo's block lengths its 3-6 pops come at 9 or more per minute, w
 the one per minute that ``run_qc`` tolerates; any reason counts as a hit.
 """
 
-import json
-import warnings
 
 import mne
-import mne_bids
 import numpy as np
 import pytest
 from scipy.stats import spearmanr
@@ -21,6 +18,7 @@ from fixtures.demo.bids_output import build_raw
 from fixtures.demo.protocol import draw_person
 from fixtures.demo.scenario import BLINK_RATE_GAIN
 from fixtures.demo.signals import electrode_positions, simulate_recording
+from tests.helpers import demo_recordings
 from workers.qc import run_qc
 
 pytestmark = pytest.mark.filterwarnings("ignore")
@@ -50,17 +48,9 @@ def _qc_consortium(manifest):
 
     Returns (record, result) pairs in answer-key order.
     """
-    key = json.loads(manifest.answer_key.read_text(encoding="utf-8"))
-    mains_hz = {site["slug"]: site["power_line_hz"] for site in key["sites"]}
     outcomes = []
-    for record in key["recordings"]:
-        path = manifest.out_dir / record["bids_root"] / record["path"]
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            raw = mne_bids.read_raw_bids(mne_bids.get_bids_path_from_fname(path),
-                                         verbose="ERROR")
-        raw.load_data(verbose="ERROR")
-        outcomes.append((record, run_qc(raw, power_line_hz=mains_hz[record["site"]])))
+    for record, raw, mains_hz in demo_recordings(manifest):
+        outcomes.append((record, run_qc(raw, power_line_hz=mains_hz)))
     return outcomes
 
 
