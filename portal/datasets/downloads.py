@@ -42,7 +42,6 @@ def stream_version_zip(files, *, folder):
                     info, "w", force_zip64=size >= ZIP64_FROM_BYTES) as target:
                 while chunk := source.read(blobs.CHUNK_BYTES):
                     target.write(chunk)
-                    if pipe.position and len(pipe.parts) > 4:
-                        yield pipe.take()
+                    yield pipe.take()
             yield pipe.take()
     yield pipe.take()

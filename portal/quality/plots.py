@@ -19,7 +19,7 @@ def _cache_path(key):
     return folder / f"{key}.svg"
 
 
-def render(run, kind, *, study_slug=None):
+def render(run, kind):
     """The SVG bytes of one plot of ``run``; drawn once per distinct content."""
     protocol = _protocol(run)
     payload = {"kind": kind, "v": PLOT_VERSION, "result": run.result,

@@ -150,8 +150,7 @@ def plot(request, run_id, kind):
         raise Http404("no such plot")
     if kind not in plots.KINDS:
         raise Http404("no such plot")
-    bands = request.GET.get("study")
-    svg = plots.render(run, kind, study_slug=bands)
+    svg = plots.render(run, kind)
     response = HttpResponse(svg, content_type="image/svg+xml")
     response["Cache-Control"] = "private, max-age=86400"
     return response

@@ -55,8 +55,7 @@ def _materialise(version, root):
 def _known_recordings(site, study):
     """Earlier index entries by data-file hash, so unchanged recordings are not read again."""
     known = {}
-    for rec in (Recording.objects.filter(version__site=site, version__study=study)
-                .select_related("participant").prefetch_related("blocks")):
+    for rec in Recording.objects.filter(version__site=site, version__study=study):
         known[rec.sha256] = {
             "sha256": rec.sha256, "sfreq_hz": rec.sfreq_hz, "n_channels": rec.n_channels,
             "channel_names": rec.channel_names, "duration_s": rec.duration_s,
