@@ -16,6 +16,18 @@ def member(username, *, role, site_slug=None):
     return user, password
 
 
+def skip_or_fail(reason):
+    """Skip for a missing service or outside reference; under CAIRN_REQUIRE_SERVICES=1 (as in
+    ``make test``) fail instead, so the full suite cannot pass by skipping."""
+    import os
+
+    import pytest
+
+    if os.environ.get("CAIRN_REQUIRE_SERVICES") == "1":
+        pytest.fail(f"{reason} (CAIRN_REQUIRE_SERVICES=1: the full suite needs it)")
+    pytest.skip(reason)
+
+
 def _repo():
     from pathlib import Path
 
@@ -36,16 +48,9 @@ def bids_examples():
     Missing, the tests that need them skip — or fail under CAIRN_REQUIRE_SERVICES=1, as in
     ``make test``, so the suite cannot pass without its outside references.
     """
-    import os
-
-    import pytest
-
     path = examples_location()
     if not path.is_dir():
-        message = f"the BIDS example datasets are not at {path} (set CAIRN_BIDS_EXAMPLES)"
-        if os.environ.get("CAIRN_REQUIRE_SERVICES") == "1":
-            pytest.fail(message)
-        pytest.skip(message)
+        skip_or_fail(f"the BIDS example datasets are not at {path} (set CAIRN_BIDS_EXAMPLES)")
     return path
 
 

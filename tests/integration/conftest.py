@@ -1,6 +1,5 @@
 """Real worker processes for integration tests."""
 
-import os
 import signal
 import subprocess
 import sys
@@ -10,16 +9,6 @@ from pathlib import Path
 import pytest
 
 REPO = Path(__file__).resolve().parents[2]
-
-
-def services_required():
-    return os.environ.get("CAIRN_REQUIRE_SERVICES") == "1"
-
-
-def skip_or_fail(reason):
-    if services_required():
-        pytest.fail(f"{reason} (CAIRN_REQUIRE_SERVICES=1: the full suite needs it)")
-    pytest.skip(reason)
 
 
 class Worker:

@@ -11,7 +11,8 @@ from django.utils import timezone
 from portal.audit.models import Event
 from portal.jobs import services
 from portal.jobs.models import Job, JobState
-from tests.integration.conftest import skip_or_fail, wait_for
+from tests.helpers import skip_or_fail
+from tests.integration.conftest import wait_for
 
 pytestmark = [pytest.mark.integration, pytest.mark.django_db(transaction=True)]
 

@@ -5,6 +5,7 @@ from django.db import DatabaseError, connection, transaction
 
 from portal.audit.events import record
 from portal.audit.models import AppendOnlyError, Event
+from tests.helpers import skip_or_fail
 
 pytestmark = pytest.mark.django_db
 
@@ -31,7 +32,7 @@ def test_orm_refuses_changes():
 ])
 def test_database_refuses_changes_on_postgresql(sql):
     if connection.vendor != "postgresql":
-        pytest.skip("the triggers exist on PostgreSQL only")
+        skip_or_fail("the triggers exist on PostgreSQL only: set DATABASE_URL=postgres://…")
     record("test.thing", summary="first")
     with pytest.raises(DatabaseError, match="append-only"):
         with transaction.atomic(), connection.cursor() as cursor:
