@@ -73,6 +73,7 @@ INSTALLED_APPS = [
     "portal.studies",
     "portal.datasets",
     "portal.quality",
+    "portal.features",
     "portal.dashboard",
 ]
 

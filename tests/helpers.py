@@ -16,6 +16,28 @@ def member(username, *, role, site_slug=None):
     return user, password
 
 
+def run_pending(kind):
+    """Run every waiting job of a kind in this process, as a worker would; returns how many."""
+    from portal.jobs import runner
+    from portal.jobs.models import Job, JobState
+
+    count = 0
+    for job in Job.objects.filter(kind=kind, state=JobState.QUEUED).order_by("pk"):
+        assert runner.run(job.pk) == "done", Job.objects.get(pk=job.pk).error
+        count += 1
+    return count
+
+
+def run_all_pending(kinds):
+    """Run waiting jobs of these kinds, in this order, until none is left."""
+    total = 0
+    while True:
+        ran = sum(run_pending(kind) for kind in kinds)
+        if not ran:
+            return total
+        total += ran
+
+
 def skip_or_fail(reason):
     """Skip for a missing service or outside reference; under CAIRN_REQUIRE_SERVICES=1 (as in
     ``make test``) fail instead, so the full suite cannot pass by skipping."""

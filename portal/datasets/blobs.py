@@ -1,6 +1,7 @@
 """Content-addressed blob storage: a file is kept once under its sha256, written atomically."""
 
 import hashlib
+import io
 import os
 import shutil
 import tempfile
@@ -51,6 +52,11 @@ def put_stream(stream):
             os.unlink(tmp)
         raise
     return sha256, size
+
+
+def put_bytes(data):
+    """Store bytes as a blob; returns (sha256, size)."""
+    return put_stream(io.BytesIO(data))
 
 
 def file_sha256(path):

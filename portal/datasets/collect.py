@@ -14,7 +14,12 @@ from django.conf import settings
 from portal.datasets.models import Upload, UploadState
 
 #: Every model field that holds a blob's sha256. Add new ones here.
-BLOB_REFERENCES = [("datasets.VersionFile", "sha256")]
+BLOB_REFERENCES = [
+    ("datasets.VersionFile", "sha256"),
+    ("features.RecordingFeatures", "table_sha256"),
+    ("features.FeatureSet", "table_sha256"),
+    ("features.FeatureSet", "sidecar_sha256"),
+]
 
 
 def referenced_blobs():

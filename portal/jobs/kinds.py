@@ -27,6 +27,12 @@ KINDS = {
                 "workers.tasks.quality:run_version", queue="intake"),
         JobKind("qc.recording", "quality checks of a recording",
                 "workers.tasks.quality:run_recording", queue="compute"),
+        JobKind("features.set", "feature set: plan the recordings",
+                "workers.tasks.features:run_set", queue="compute"),
+        JobKind("features.recording", "features of a recording",
+                "workers.tasks.features:run_recording", queue="compute"),
+        JobKind("features.combine", "feature set: join the table",
+                "workers.tasks.features:run_combine", queue="compute"),
     )
 }
 

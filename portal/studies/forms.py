@@ -1,11 +1,13 @@
 from django import forms
 
 from portal.studies.protocol import (
+    DEFAULT_PROTOCOL,
     QC_FIELDS,
     ProtocolError,
     format_bands,
     format_levels,
     parse_bands,
+    parse_channel_rule,
     parse_levels,
     parse_names,
     validate_protocol,
@@ -37,12 +39,30 @@ class ProtocolForm(forms.Form):
     h_freq_hz = forms.FloatField(label="Pass-band high edge (Hz)")
     bands = forms.CharField(widget=forms.Textarea(attrs={"rows": 6}),
                             help_text="One band per line: name low_Hz high_Hz, e.g. 'alpha 8 13'.")
+    feature_channels = forms.CharField(
+        label="Channels for features",
+        help_text="'common' (the channels every input recording has), 'present' (each "
+                  "recording's own, for single-site work) or names separated by commas.")
+    feature_sfreq_hz = forms.FloatField(
+        required=False, label="Analysis sampling rate (Hz)",
+        help_text="Leave empty for the lowest rate among the inputs.")
+    feature_notch = forms.BooleanField(required=False, label="Notch the mains frequency")
+    feature_bad_channels = forms.ChoiceField(
+        choices=[("interpolate", "interpolate them from a standard montage"),
+                 ("drop", "leave them out (their columns stay empty)")],
+        label="Channels marked bad")
+    feature_reference = forms.ChoiceField(
+        choices=[("average", "average of the kept channels"),
+                 ("as_recorded", "as recorded")], label="Reference")
+    feature_window_s = forms.FloatField(label="Window length (s)")
+    feature_overlap = forms.FloatField(label="Window overlap (share of a window, 0 to 0.9)")
     note = forms.CharField(required=False, max_length=300, label="Why this change?")
 
     def __init__(self, *args, protocol, **kwargs):
         super().__init__(*args, **kwargs)
         for key, label in QC_FIELDS.items():
             self.fields[f"qc_{key}"] = forms.FloatField(label=label[0].upper() + label[1:])
+        self.earlier_features = {**DEFAULT_PROTOCOL["features"], **protocol.get("features", {})}
         if not self.is_bound:
             self.initial = self.initial_from(protocol)
 
@@ -61,6 +81,14 @@ class ProtocolForm(forms.Form):
             "bands": format_bands(p["bands"]),
         }
         initial.update({f"qc_{k}": v for k, v in p["qc"].items()})
+        f = {**DEFAULT_PROTOCOL["features"], **p.get("features", {})}
+        channels = f["channels"]
+        initial.update({
+            "feature_channels": ", ".join(channels) if isinstance(channels, list) else channels,
+            "feature_sfreq_hz": f["analysis_sfreq_hz"] or "", "feature_notch": f["notch"],
+            "feature_bad_channels": f["bad_channels"], "feature_reference": f["reference"],
+            "feature_window_s": f["window_s"], "feature_overlap": f["overlap"],
+        })
         return initial
 
     def clean(self):
@@ -91,9 +119,21 @@ class ProtocolForm(forms.Form):
             "passband": {"l_freq_hz": data["l_freq_hz"], "h_freq_hz": data["h_freq_hz"]},
             "bands": bands,
             "qc": {k: data[f"qc_{k}"] for k in QC_FIELDS},
+            "features": {
+                **self.earlier_features,
+                "channels": parse_channel_rule(data["feature_channels"]),
+                "analysis_sfreq_hz": data.get("feature_sfreq_hz"),
+                "notch": bool(data.get("feature_notch")),
+                "bad_channels": data["feature_bad_channels"],
+                "reference": data["feature_reference"],
+                "window_s": data["feature_window_s"], "overlap": data["feature_overlap"],
+            },
         }
         field_for = {"rating_scale": "levels", "passband": "h_freq_hz",
-                     "ratings": "ratings_table"}
+                     "ratings": "ratings_table", "features.channels": "feature_channels",
+                     "features.window_s": "feature_window_s",
+                     "features.overlap": "feature_overlap",
+                     "features.analysis_sfreq_hz": "feature_sfreq_hz"}
         try:
             validate_protocol(protocol)
         except ProtocolError as exc:

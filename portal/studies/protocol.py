@@ -30,6 +30,20 @@ DEFAULT_PROTOCOL = {
         {"name": "beta", "l_freq_hz": 13.0, "h_freq_hz": 30.0},
         {"name": "gamma", "l_freq_hz": 30.0, "h_freq_hz": 40.0},
     ],
+    # How feature sets are computed unless a request says otherwise. Channels: "common" (the
+    # channels every input recording has), "present" (each recording's own; for single-site
+    # work) or a list of names. An analysis rate of None means the lowest rate of the inputs.
+    "features": {
+        "channels": "common",
+        "analysis_sfreq_hz": None,
+        "notch": True,
+        "bad_channels": "interpolate",
+        "reference": "average",
+        "window_s": 4.0,
+        "overlap": 0.5,
+        "band_signals": [],
+        "features": None,
+    },
     # Our starting thresholds; each study lead sets their own.
     "qc": {
         "bad_channel_share_review": 0.10,
@@ -153,9 +167,40 @@ def validate_protocol(protocol):
         review, fail = qc.get(f"{what}_review"), qc.get(f"{what}_fail")
         if isinstance(review, (int, float)) and isinstance(fail, (int, float)) and review > fail:
             add(f"qc.{what}_review", "the review threshold must not be above the fail threshold")
+    features = {**DEFAULT_PROTOCOL["features"], **protocol.get("features", {})}
+    channels = features["channels"]
+    if not (channels in ("common", "present") or (
+            isinstance(channels, list) and channels and all(isinstance(c, str) for c in channels))):
+        add("features.channels", "say 'common', 'present' or list channel names")
+    elif isinstance(channels, list) and len({c.lower() for c in channels}) != len(channels):
+        add("features.channels", "each channel may be listed only once")
+    window_s, overlap = features["window_s"], features["overlap"]
+    if not isinstance(window_s, (int, float)) or not 0.25 <= window_s <= 600:
+        add("features.window_s", "give a window length between 0.25 and 600 s")
+    if not isinstance(overlap, (int, float)) or not 0 <= overlap <= 0.9:
+        add("features.overlap", "give an overlap between 0 and 0.9 of a window")
+    rate = features["analysis_sfreq_hz"]
+    if rate is not None and (not isinstance(rate, (int, float)) or rate <= 0):
+        add("features.analysis_sfreq_hz", "give a rate in Hz, or leave it empty")
+    elif rate is not None and h_pass is not None and rate < 2.5 * h_pass:
+        add("features.analysis_sfreq_hz",
+            f"{rate} Hz is too low for a pass-band up to {h_pass} Hz; give at least "
+            f"{2.5 * h_pass:g} Hz")
+    if features["bad_channels"] not in ("interpolate", "drop"):
+        add("features.bad_channels", "choose 'interpolate' or 'drop'")
+    if features["reference"] not in ("average", "as_recorded"):
+        add("features.reference", "choose 'average' or 'as_recorded'")
     if errors:
         raise ProtocolError(errors)
     return protocol
+
+
+def parse_channel_rule(text):
+    """'common', 'present', or a comma-separated list of channel names."""
+    text = text.strip()
+    if text.lower() in ("common", "present"):
+        return text.lower()
+    return parse_names(text)
 
 
 def parse_names(text):

@@ -6,6 +6,7 @@ from django.shortcuts import redirect, render
 from portal.accounts.permissions import Action, access, can, get_visible_study, require
 from portal.studies.forms import ProtocolForm
 from portal.studies.models import current_protocol, save_protocol
+from portal.studies.protocol import DEFAULT_PROTOCOL
 
 
 @access("checked")
@@ -15,6 +16,7 @@ def protocol(request, study_slug):
     history = study.protocol_versions.select_related("created_by")[:50]
     return render(request, "studies/protocol.html", {
         "study": study, "version": current, "p": current.data, "history": history,
+        "f": {**DEFAULT_PROTOCOL["features"], **current.data.get("features", {})},
         "may_edit": can(request.user, Action.EDIT_PROTOCOL, study=study),
     })
 

@@ -5,6 +5,7 @@ check (or a URL argument this test cannot fill) fails here.
 """
 
 import io
+import json
 
 import pytest
 from django.apps import apps
@@ -19,6 +20,7 @@ from portal.datasets.models import (
     Upload,
     VersionFile,
 )
+from portal.features.models import FeatureSet
 from portal.jobs.models import Job
 from portal.quality.models import QCRound, QCRun
 
@@ -69,10 +71,32 @@ def fill(consortium, site_key, study_key):
                     "channels": {"Cz": [10.0, 8.5]}},
             "positions": {"Cz": [0.0, 0.0, 0.09]},
         })
+    feature_set = _feature_set(site, study, version)
     return {"study_slug": study.slug, "site_slug": site.slug, "upload_id": upload.pk,
             "job_id": job.pk, "token_id": token.pk, "version_id": version.pk,
             "file_id": item.pk, "round_id": qc_round.pk, "recording_id": recording.pk,
-            "run_id": run.pk, "kind": "spectrum"}
+            "run_id": run.pk, "kind": "spectrum", "set_id": feature_set.pk, "fmt": "csv",
+            "plot": "by-site"}
+
+
+def _feature_set(site, study, version):
+    """A finished feature set of one invented window, stored as the workers store it."""
+    import pandas as pd
+
+    from workers.features.pipeline import frame_to_parquet
+
+    table = pd.DataFrame({"site": [site.slug], "level": ["low"],
+                          "alpha.relative_power.Cz": [0.3]})
+    table_sha, size = blobs.put_bytes(frame_to_parquet(table))
+    sidecar = {"columns": {"site": {"kind": "index"}, "level": {"kind": "label"},
+                           "alpha.relative_power.Cz": {"kind": "feature", "unit": "1"}}}
+    sidecar_sha, _ = blobs.put_bytes(json.dumps(sidecar).encode())
+    feature_set = FeatureSet.objects.create(
+        study=study, key_sha256=f"{site.slug}".ljust(64, "0"), params={}, params_digest="3" * 64,
+        code_version="test", state="done", table_sha256=table_sha, table_bytes=size,
+        sidecar_sha256=sidecar_sha, n_rows=1, n_columns=3)
+    feature_set.versions.set([version])
+    return feature_set
 
 
 def urls_for(kwargs_source):
@@ -135,7 +159,8 @@ def _counts():
 
 #: Pages that exist only to change something: an auditor is refused even the form.
 WRITE_ONLY = {"studies:protocol_edit", "datasets:upload_new", "api:uploads",
-              "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override"}
+              "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override",
+              "features:new"}
 
 
 def test_auditor_reads_everything_of_their_study_and_writes_nothing(client, consortium):

@@ -10,22 +10,11 @@ from django.urls import reverse
 from portal.accounts.setup import add_site, add_study
 from portal.audit.models import Event
 from portal.datasets.services import submit_path
-from portal.jobs import runner
-from portal.jobs.models import Job, JobState
 from portal.quality.models import QCRound, QCRun
 from portal.quality.services import progress, start_round
-from tests.helpers import member
+from tests.helpers import member, run_pending
 
 pytestmark = pytest.mark.django_db
-
-
-def run_pending(kind):
-    """Run every waiting job of a kind in this process, as a worker would; returns how many."""
-    count = 0
-    for job in Job.objects.filter(kind=kind, state=JobState.QUEUED).order_by("pk"):
-        assert runner.run(job.pk) == "done", Job.objects.get(pk=job.pk).error
-        count += 1
-    return count
 
 
 @pytest.fixture

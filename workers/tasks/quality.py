@@ -3,6 +3,7 @@ once per (file, settings, code version) and stores the result."""
 
 import csv
 import tempfile
+from contextlib import contextmanager
 from pathlib import Path, PurePosixPath
 
 from portal.audit.events import record
@@ -80,10 +81,30 @@ def sensor_positions(ch_names, positions):
             for name, row in zip(ch_names, xyz, strict=True) if np.all(np.isfinite(row))}
 
 
-def run_recording(ctx):
+@contextmanager
+def materialised(recording):
+    """A temporary folder holding the recording's file and the sidecars it inherits."""
+    with tempfile.TemporaryDirectory(prefix="cairn-read-") as tmp:
+        root = Path(tmp)
+        for item in recording_files(recording):
+            blobs.copy_blob_to(item.sha256, root / item.path)
+        yield root
+
+
+def read_raw(root, recording):
+    """The recording as an mne Raw with its data loaded (BIDS sidecars applied)."""
     import mne
     import mne_bids
 
+    bids_path = mne_bids.get_bids_path_from_fname(root / recording.path)
+    bids_path.root = root
+    with mne.utils.use_log_level("ERROR"):
+        raw = mne_bids.read_raw_bids(bids_path, verbose="ERROR")
+        raw.load_data()
+    return raw
+
+
+def run_recording(ctx):
     from workers.qc import QCSettings, run_qc
 
     recording = Recording.objects.select_related("version__site", "version__study").get(
@@ -97,15 +118,8 @@ def run_recording(ctx):
             job.result = {"reused": True}
         return
     ctx.progress(0, 3, "reading the recording")
-    with tempfile.TemporaryDirectory(prefix="cairn-qc-") as tmp:
-        root = Path(tmp)
-        for item in recording_files(recording):
-            blobs.copy_blob_to(item.sha256, root / item.path)
-        bids_path = mne_bids.get_bids_path_from_fname(root / recording.path)
-        bids_path.root = root
-        with mne.utils.use_log_level("ERROR"):
-            raw = mne_bids.read_raw_bids(bids_path, verbose="ERROR")
-            raw.load_data()
+    with materialised(recording) as root:
+        raw = read_raw(root, recording)
         marked = site_status(root / recording.path.replace(
             PurePosixPath(recording.path).name.rsplit("_", 1)[1], "channels.tsv"))
         positions = electrode_positions(raw)

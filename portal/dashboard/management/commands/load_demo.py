@@ -10,6 +10,7 @@ from portal.accounts.models import AccountFlags, Site
 from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import submit_path
+from portal.features.models import FeatureSet
 from portal.studies.models import current_protocol, save_protocol
 
 STUDY_SLUG = "rail-workload"
@@ -61,6 +62,11 @@ class Command(BaseCommand):
             upload = submit_path(folder, site=Site.objects.get(slug=site_slug), study=study,
                                    user=manager, via="command")
             self.stdout.write(f"submitted {what}: upload {upload.pk}")
+        # serve_demo asks for the consortium's feature set once the quality checks are done.
+        from portal.dashboard.management.commands.serve_demo import FEATURES_MARKER
+
+        if not FeatureSet.objects.filter(study=study).exists():
+            (Path(settings.VAR_DIR) / "demo" / FEATURES_MARKER).write_text(STUDY_SLUG)
         self._print_logins(logins)
 
     def _member(self, logins, username, role, site_slug):

@@ -1,0 +1,6 @@
+from django.apps import AppConfig
+
+
+class FeaturesConfig(AppConfig):
+    name = "portal.features"
+    verbose_name = "feature sets"

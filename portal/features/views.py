@@ -1,0 +1,226 @@
+"""Feature-set pages: a study's sets and the request form, one set's page, downloads, plots."""
+
+import json
+
+from django.contrib import messages
+from django.core.exceptions import PermissionDenied
+from django.http import FileResponse, Http404, HttpResponse, StreamingHttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.views.decorators.http import require_POST
+
+from portal.accounts.models import Site
+from portal.accounts.permissions import Action, access, can, get_visible_study, require
+from portal.audit.events import record
+from portal.datasets import blobs
+from portal.features import plots
+from portal.features.forms import FeatureSetForm
+from portal.features.models import FeatureSet
+from portal.features.services import (
+    FeatureRequestError,
+    jobs_of,
+    latest_versions,
+    request_feature_set,
+    status_of,
+)
+from portal.studies.models import current_protocol
+
+DOWNLOAD_KINDS = {"parquet": "application/vnd.apache.parquet", "csv": "text/csv",
+                  "json": "application/json"}
+
+
+def set_sites(feature_set):
+    return list(Site.objects.filter(versions__feature_sets=feature_set).distinct()
+                .order_by("slug"))
+
+
+def may_see(user, feature_set, sites=None):
+    sites = set_sites(feature_set) if sites is None else sites
+    return bool(sites) and all(can(user, Action.VIEW, site=s, study=feature_set.study)
+                               for s in sites)
+
+
+def visible_set(user, set_id):
+    feature_set = get_object_or_404(FeatureSet.objects.select_related("study", "created_by"),
+                                    pk=set_id)
+    sites = set_sites(feature_set)
+    if not may_see(user, feature_set, sites):
+        raise Http404("no such feature set")
+    return feature_set, sites
+
+
+def feature_choices():
+    from workers.features import registry
+
+    return [(f.name, f"{f.name.replace('_', ' ')} ({f.family})") for f in registry().values()]
+
+
+def request_form(user, study, data=None):
+    sites = [v.site for v in latest_versions(study)
+             if can(user, Action.RUN_JOBS, site=v.site, study=study)]
+    protocol = current_protocol(study).data
+    return FeatureSetForm(data, sites=sorted(sites, key=lambda s: s.slug),
+                          bands=protocol["bands"], features=feature_choices()), sites
+
+
+@access("checked")
+def study_sets(request, study_slug):
+    study = get_visible_study(request.user, study_slug)
+    page = []
+    for feature_set in study.feature_sets.select_related("created_by")[:200]:
+        sites = set_sites(feature_set)
+        if may_see(request.user, feature_set, sites):
+            page.append({"set": feature_set, "sites": sites,
+                         "status": status_of(feature_set)[0]})
+    form, sites = request_form(request.user, study)
+    return render(request, "features/study.html", {
+        "study": study, "rows": page, "form": form if sites else None})
+
+
+@access("checked")
+@require_POST
+def new_set(request, study_slug):
+    study = get_visible_study(request.user, study_slug)
+    form, sites = request_form(request.user, study, request.POST)
+    if not sites:
+        raise PermissionDenied("you may not start work at any site of this study")
+    if not form.is_valid():
+        return render(request, "features/study.html", {"study": study, "rows": [],
+                                                        "form": form}, status=400)
+    chosen = [s for s in sites if s.slug in form.cleaned_data["sites"]]
+    for site in chosen:
+        require(request.user, Action.RUN_JOBS, site=site, study=study)
+    versions = [v for v in latest_versions(study, chosen)]
+    try:
+        feature_set, created = request_feature_set(versions, overrides=form.overrides(),
+                                                   user=request.user)
+    except FeatureRequestError as exc:
+        form.add_error(None, str(exc))
+        return render(request, "features/study.html", {"study": study, "rows": [],
+                                                        "form": form}, status=400)
+    if not created:
+        messages.info(request, "An identical feature set exists already: here it is.")
+    return redirect("features:detail", set_id=feature_set.pk)
+
+
+def _item_rows(feature_set):
+    from portal.quality.models import QCRound
+
+    rounds = {}
+    for qc_round in QCRound.objects.filter(version__feature_sets=feature_set).order_by(
+            "created_at", "id"):
+        rounds[(qc_round.version_id, qc_round.settings_digest)] = qc_round.pk
+    rows = []
+    for item in feature_set.items.select_related(
+            "recording__version__site", "recording__participant", "qc_run", "part"):
+        part = item.part
+        counts = part.window_counts if part else {}
+        rows.append({
+            "item": item, "recording": item.recording, "part": part,
+            "round_id": rounds.get((item.recording.version_id, item.qc_run.settings_digest)),
+            "kept": part.n_windows if part else None,
+            "excluded": sum(v for k, v in counts.items() if k not in ("candidates", "kept")),
+            "counts": counts,
+            "interpolated": sorted(c for c, s in (part.channel_status if part else {}).items()
+                                   if s == "interpolated"),
+            "dropped": sorted(c for c, s in (part.channel_status if part else {}).items()
+                              if s == "dropped"),
+        })
+    return rows
+
+
+def _columns(feature_set):
+    if not feature_set.sidecar_sha256:
+        return {}
+    with blobs.open_blob(feature_set.sidecar_sha256) as fh:
+        return json.load(fh)["columns"]
+
+
+def _default_column(columns):
+    features = [name for name, c in columns.items() if c.get("kind") == "feature"]
+    for prefix in ("alpha.relative_power.Pz", "alpha.relative_power.P", "alpha.relative_power."):
+        found = [n for n in features if n.startswith(prefix)]
+        if found:
+            return found[0]
+    return features[0] if features else None
+
+
+@access("checked")
+def set_detail(request, set_id):
+    feature_set, sites = visible_set(request.user, set_id)
+    state, error = status_of(feature_set)
+    rows = _item_rows(feature_set)
+    columns = _columns(feature_set)
+    chosen = request.GET.get("column") or _default_column(columns)
+    if chosen not in columns or columns[chosen].get("kind") != "feature":
+        chosen = _default_column(columns)
+    active = [job for job in jobs_of(feature_set).exclude(kind="features.recording")
+              .order_by("id")]
+    done = sum(1 for r in rows if r["part"] is not None)
+    may_download = all(can(request.user, Action.DOWNLOAD, site=s, study=feature_set.study)
+                       for s in sites)
+    return render(request, "features/detail.html", {
+        "set": feature_set, "sites": sites, "state": state, "error": error, "rows": rows,
+        "done": done, "total": len(rows), "jobs": active,
+        "percent": round(100 * done / len(rows)) if rows else 100,
+        "params_text": json.dumps(feature_set.params, indent=2, sort_keys=True),
+        "versions": feature_set.versions.select_related("site").order_by("site__slug"),
+        "effects": feature_set.site_effects, "column": chosen,
+        "feature_columns": [n for n, c in columns.items() if c.get("kind") == "feature"],
+        "may_download": may_download and state == "done",
+    })
+
+
+@access("checked")
+def download(request, set_id, fmt):
+    kind = fmt
+    feature_set, sites = visible_set(request.user, set_id)
+    if kind not in DOWNLOAD_KINDS or feature_set.state != "done":
+        raise Http404("no such download")
+    for site in sites:
+        require(request.user, Action.DOWNLOAD, site=site, study=feature_set.study)
+    sha = feature_set.sidecar_sha256 if kind == "json" else feature_set.table_sha256
+    name = f"{feature_set.study.slug}-features-{feature_set.pk}"
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           study=feature_set.study, site=sites[0] if len(sites) == 1 else None,
+           target=feature_set, summary=f"downloaded feature set {feature_set.pk} as {kind}",
+           outputs=[{"feature_set": feature_set.pk, "format": kind,
+                     "table_sha256": feature_set.table_sha256,
+                     "sidecar_sha256": feature_set.sidecar_sha256}])
+    if kind == "csv":
+        response = StreamingHttpResponse(csv_stream(feature_set.table_sha256),
+                                         content_type=DOWNLOAD_KINDS[kind])
+        response["Content-Disposition"] = f'attachment; filename="{name}.csv"'
+        return response
+    suffix = "parquet" if kind == "parquet" else "columns.json"
+    return FileResponse(blobs.open_blob(sha), as_attachment=True, filename=f"{name}.{suffix}",
+                        content_type=DOWNLOAD_KINDS[kind])
+
+
+def csv_stream(table_sha256, batch_rows=2000):
+    """The table as CSV, converted batch by batch (never the whole table as text)."""
+    import pyarrow.parquet as pq
+
+    with blobs.open_blob(table_sha256) as fh:
+        source = pq.ParquetFile(fh)
+        header = True
+        for batch in source.iter_batches(batch_size=batch_rows):
+            frame = batch.to_pandas()
+            yield frame.to_csv(index=False, header=header, float_format="%.9g",
+                               lineterminator="\n")
+            header = False
+
+
+@access("checked")
+def plot(request, set_id, plot):
+    kind = plot
+    feature_set, _ = visible_set(request.user, set_id)
+    if kind not in plots.KINDS or feature_set.state != "done":
+        raise Http404("no such plot")
+    columns = _columns(feature_set)
+    column = request.GET.get("column") or _default_column(columns)
+    if column not in columns or columns[column].get("kind") != "feature":
+        raise Http404("no such column")
+    svg = plots.render(feature_set, kind, column, columns[column])
+    response = HttpResponse(svg, content_type="image/svg+xml")
+    response["Cache-Control"] = "private, max-age=86400"
+    return response
