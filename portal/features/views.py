@@ -161,6 +161,9 @@ def set_detail(request, set_id):
     return render(request, "features/detail.html", {
         "set": feature_set, "sites": sites, "state": state, "error": error, "rows": rows,
         "done": done, "total": len(rows), "jobs": active,
+        "kept_total": sum(r["kept"] or 0 for r in rows),
+        "left_total": sum(r["excluded"] for r in rows),
+        "excluded_total": sum(1 for r in rows if r["part"] and r["part"].excluded_reason),
         "percent": round(100 * done / len(rows)) if rows else 100,
         "params_text": json.dumps(feature_set.params, indent=2, sort_keys=True),
         "versions": feature_set.versions.select_related("site").order_by("site__slug"),
