@@ -74,6 +74,7 @@ INSTALLED_APPS = [
     "portal.datasets",
     "portal.quality",
     "portal.features",
+    "portal.training",
     "portal.dashboard",
 ]
 

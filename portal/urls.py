@@ -8,6 +8,7 @@ urlpatterns = [
     path("data/", include("portal.datasets.urls")),
     path("quality/", include("portal.quality.urls")),
     path("features/", include("portal.features.urls")),
+    path("training/", include("portal.training.urls")),
     path("jobs/", include("portal.jobs.urls")),
     path("audit/", include("portal.audit.urls")),
     path("api/v1/", include("portal.api_urls")),

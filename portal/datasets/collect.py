@@ -19,6 +19,9 @@ BLOB_REFERENCES = [
     ("features.RecordingFeatures", "table_sha256"),
     ("features.FeatureSet", "table_sha256"),
     ("features.FeatureSet", "sidecar_sha256"),
+    ("training.ModelRelease", "model_sha256"),
+    ("training.ModelRelease", "card_sha256"),
+    ("training.ModelRelease", "spec_sha256"),
 ]
 
 

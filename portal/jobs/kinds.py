@@ -33,6 +33,12 @@ KINDS = {
                 "workers.tasks.features:run_recording", queue="compute"),
         JobKind("features.combine", "feature set: join the table",
                 "workers.tasks.features:run_combine", queue="compute"),
+        JobKind("training.run", "training run: check and plan the folds",
+                "workers.tasks.training:run_run", queue="compute"),
+        JobKind("training.fold", "training run: one model on one fold",
+                "workers.tasks.training:run_fold", queue="compute"),
+        JobKind("training.finish", "training run: statistics and releases",
+                "workers.tasks.training:run_finish", queue="compute"),
     )
 }
 

@@ -76,7 +76,21 @@ def fill(consortium, site_key, study_key):
             "job_id": job.pk, "token_id": token.pk, "version_id": version.pk,
             "file_id": item.pk, "round_id": qc_round.pk, "recording_id": recording.pk,
             "run_id": run.pk, "kind": "spectrum", "set_id": feature_set.pk, "fmt": "csv",
-            "plot": "by-site"}
+            "plot": "by-site", **_training(site, study, feature_set)}
+
+
+def _training(site, study, feature_set):
+    """A finished training run with an approved release, stored as the workers store them."""
+    from portal.training.models import ModelRelease, TrainingRun
+
+    sha, _ = blobs.put_bytes(b"an invented release file\n")
+    run = TrainingRun.objects.create(study=study, feature_set=feature_set, spec={
+        "validation": {"scheme": "grouped_kfold"}, "models": []}, spec_digest="4" * 64,
+        code_version="test", state="done", results={})
+    release = ModelRelease.objects.create(
+        run=run, model="lda", model_sha256=sha, model_digest="5" * 64, card_sha256=sha,
+        spec_sha256=sha, state="approved", scores={"per_fold": {}, "scheme": {}})
+    return {"training_id": run.pk, "release_id": release.pk, "part": "card"}
 
 
 def _feature_set(site, study, version):
@@ -160,7 +174,7 @@ def _counts():
 #: Pages that exist only to change something: an auditor is refused even the form.
 WRITE_ONLY = {"studies:protocol_edit", "datasets:upload_new", "api:uploads",
               "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override",
-              "features:new"}
+              "features:new", "training:new", "training:rerun", "training:approve"}
 
 
 def test_auditor_reads_everything_of_their_study_and_writes_nothing(client, consortium):

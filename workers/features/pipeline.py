@@ -13,6 +13,17 @@ from workers.signal import ChannelError, PrepSettings, plan_windows, prepare
 
 from .extract import FeatureRequest, compute_features
 
+#: The joined table's leading columns; every other column is a feature.
+INDEX_COLUMNS = ("site", "participant", "session", "task", "run", "window_start_s")
+LABEL_COLUMNS = ("rating", "level", "condition")
+ORIGIN_COLUMNS = ("recording", "acquisition", "block_onset_s", "qc_verdict")
+NON_FEATURE_COLUMNS = INDEX_COLUMNS + LABEL_COLUMNS + ORIGIN_COLUMNS
+
+
+def feature_columns(columns):
+    """The feature columns of a joined table, in table order."""
+    return [c for c in columns if c not in NON_FEATURE_COLUMNS]
+
 
 @dataclass
 class Part:

@@ -10,10 +10,8 @@ from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features.models import FeatureSet, FeatureSetItem, FeatureSetState, RecordingFeatures
 from portal.jobs.services import enqueue
+from workers.features.pipeline import INDEX_COLUMNS, LABEL_COLUMNS, ORIGIN_COLUMNS
 
-INDEX_COLUMNS = ("site", "participant", "session", "task", "run", "window_start_s")
-LABEL_COLUMNS = ("rating", "level", "condition")
-ORIGIN_COLUMNS = ("recording", "acquisition", "block_onset_s", "qc_verdict")
 CAUTION = ("Research use only: not a medical device and not for decisions about a person's "
            "fitness for duty. Participant data: handle under your ethics approval and "
            "data-protection rules.")

@@ -1,0 +1,116 @@
+"""Starting training runs, re-running them, and approving model releases."""
+
+import json
+
+from django.db import transaction
+from django.utils import timezone
+
+from portal.audit.events import record
+from portal.datasets import blobs
+from portal.features.models import FeatureSet
+from portal.features.services import canonical_digest
+from portal.jobs.services import enqueue
+from portal.training.models import ModelRelease, ReleaseState, TrainingRun
+
+#: Must equal ``workers.learning.CODE_VERSION`` (a test checks).
+TRAINING_CODE_VERSION = "learning-1"
+
+
+class TrainingRequestError(ValueError):
+    """A spec that cannot run; ``errors`` maps a field to messages."""
+
+    def __init__(self, errors):
+        self.errors = errors if isinstance(errors, dict) else {"spec": [str(errors)]}
+        super().__init__("; ".join(f"{k}: {m}" for k, ms in self.errors.items() for m in ms))
+
+
+def feature_columns(feature_set):
+    with blobs.open_blob(feature_set.sidecar_sha256) as fh:
+        columns = json.load(fh)["columns"]
+    return [name for name, info in columns.items() if info.get("kind") == "feature"]
+
+
+def check_spec(data):
+    """(feature_set, TrainingSpec) for a spec dict, or TrainingRequestError naming fields."""
+    from workers.learning.spec import SpecError, TrainingSpec
+
+    if not isinstance(data, dict):
+        raise TrainingRequestError({"spec": ["give a JSON object"]})
+    feature_set = None
+    if isinstance(data.get("feature_set"), int):
+        feature_set = FeatureSet.objects.filter(pk=data["feature_set"]).first()
+        if feature_set is None:
+            raise TrainingRequestError({"feature_set": [f"no feature set {data['feature_set']}"]})
+        if feature_set.state != "done":
+            raise TrainingRequestError({"feature_set": [
+                f"feature set {feature_set.pk} is not ready yet ({feature_set.state})"]})
+    try:
+        spec = TrainingSpec.from_dict(
+            data, columns=feature_columns(feature_set) if feature_set else None,
+            sites=[s.slug for s in feature_set.sites()] if feature_set else None)
+    except SpecError as exc:
+        raise TrainingRequestError(exc.errors) from None
+    return feature_set, spec
+
+
+def start_run(data, *, user=None, rerun_of=None):
+    """Store the spec whole and queue the run's coordinating job."""
+    feature_set, spec = check_spec(data)
+    stored = spec.as_dict()
+    with transaction.atomic():
+        run = TrainingRun.objects.create(
+            study=feature_set.study, feature_set=feature_set, spec=stored,
+            spec_digest=canonical_digest(stored), code_version=TRAINING_CODE_VERSION,
+            created_by=user, rerun_of=rerun_of)
+        sites = [s.slug for s in feature_set.sites()]
+        record("training.requested", actor=user, worker=user is None, target=run,
+               study=feature_set.study, site=feature_set.sites().first() if len(sites) == 1
+               else None,
+               summary=f"training run {run.pk} asked for: {len(spec.models)} model(s) on "
+                       f"feature set {feature_set.pk}"
+                       + (f" (re-run of {rerun_of.pk})" if rerun_of else ""),
+               params={"spec": stored, "spec_digest": run.spec_digest,
+                       "code_version": TRAINING_CODE_VERSION},
+               inputs=[{"feature_set": feature_set.pk,
+                        "table_sha256": feature_set.table_sha256}])
+        enqueue("training.run", target=run, study=feature_set.study,
+                params={"run": run.pk}, created_by=user)
+    return run
+
+
+def rerun(run, *, user):
+    return start_run(run.spec, user=user, rerun_of=run)
+
+
+def approve(release, *, user):
+    with transaction.atomic():
+        updated = ModelRelease.objects.filter(pk=release.pk, state=ReleaseState.PENDING).update(
+            state=ReleaseState.APPROVED, approved_by=user, approved_at=timezone.now())
+        if updated:
+            record("release.approved", actor=user, target=release, study=release.run.study,
+                   summary=f"release {release.pk} ({release.model}) approved for the sites",
+                   inputs=[{"release": release.pk, "model_sha256": release.model_sha256,
+                            "model_digest": release.model_digest}])
+    return bool(updated)
+
+
+def jobs_of(run):
+    from portal.jobs.models import Job
+
+    return Job.objects.filter(kind__startswith="training.", params__run=run.pk)
+
+
+def status_of(run):
+    from portal.jobs.models import JobState
+
+    if run.state == "done":
+        return "done", ""
+    failed = jobs_of(run).filter(state=JobState.FAILED).order_by("-id").first()
+    if failed is not None:
+        return "failed", failed.error
+    return run.state, run.error
+
+
+def progress_of(run):
+    done = run.folds.count()
+    return done, run.n_expected

@@ -1,0 +1,250 @@
+"""Training pages: a study's runs and the form, one run, comparison across runs, plots,
+release approval, each site's release downloads."""
+
+import json
+
+from django import forms as django_forms
+from django.contrib import messages
+from django.core.exceptions import PermissionDenied
+from django.http import FileResponse, Http404, HttpResponse
+from django.shortcuts import get_object_or_404, redirect, render
+from django.views.decorators.http import require_POST
+
+from portal.accounts.models import STUDY_WIDE_ROLES
+from portal.accounts.permissions import (
+    Action,
+    access,
+    can,
+    get_visible_site,
+    get_visible_study,
+    is_operator,
+    require,
+    study_roles,
+)
+from portal.audit.events import record
+from portal.datasets import blobs
+from portal.features.models import FeatureSet
+from portal.features.views import may_see, set_sites
+from portal.training import plots
+from portal.training.forms import TrainingForm
+from portal.training.models import ModelRelease, ReleaseState, TrainingRun
+from portal.training.services import (
+    TrainingRequestError,
+    approve,
+    progress_of,
+    rerun,
+    start_run,
+    status_of,
+)
+
+RELEASE_PARTS = {"model": ("model.skops", "application/octet-stream", "model_sha256"),
+                 "card": ("model-card.md", "text/markdown", "card_sha256"),
+                 "spec": ("features.json", "application/json", "spec_sha256")}
+
+
+def visible_run(user, run_id):
+    run = get_object_or_404(TrainingRun.objects.select_related("study", "feature_set",
+                                                               "created_by"), pk=run_id)
+    sites = set_sites(run.feature_set)
+    if not may_see(user, run.feature_set, sites):
+        raise Http404("no such training run")
+    return run, sites
+
+
+def may_run_on(user, feature_set, sites=None):
+    sites = set_sites(feature_set) if sites is None else sites
+    return bool(sites) and all(can(user, Action.RUN_JOBS, site=s, study=feature_set.study)
+                               for s in sites)
+
+
+def is_lead(user, study):
+    return is_operator(user) or bool(study_roles(user, study) & {"study_lead"})
+
+
+def _form(user, study, data=None):
+    sets = [fs for fs in FeatureSet.objects.filter(study=study, state="done")
+            if may_run_on(user, fs)]
+    return TrainingForm(data, feature_sets=sets), sets
+
+
+@access("checked")
+def study_runs(request, study_slug):
+    study = get_visible_study(request.user, study_slug)
+    rows = []
+    for run in study.training_runs.select_related("feature_set", "created_by")[:200]:
+        if may_see(request.user, run.feature_set):
+            rows.append({"run": run, "status": status_of(run)[0]})
+    form, sets = _form(request.user, study)
+    return render(request, "training/study.html", {"study": study, "rows": rows,
+                                                   "form": form if sets else None})
+
+
+@access("checked")
+@require_POST
+def new_run(request, study_slug):
+    study = get_visible_study(request.user, study_slug)
+    form, sets = _form(request.user, study, request.POST)
+    if not sets:
+        raise PermissionDenied("no feature set here on which you may train")
+    if form.is_valid():
+        try:
+            spec = form.spec()
+            chosen = next((fs for fs in sets if fs.pk == spec.get("feature_set")), None)
+            if chosen is None:
+                raise TrainingRequestError({"feature_set": [
+                    "choose one of the feature sets offered to you"]})
+            run = start_run(spec, user=request.user)
+            return redirect("training:detail", training_id=run.pk)
+        except django_forms.ValidationError as exc:
+            form.add_error(None, exc)
+        except TrainingRequestError as exc:
+            for key, problems in exc.errors.items():
+                for problem in problems:
+                    form.add_error(None, f"{key}: {problem}")
+    rows = []
+    return render(request, "training/study.html", {"study": study, "rows": rows, "form": form},
+                  status=400)
+
+
+def _model_rows(run):
+    results = run.results.get("models", {})
+    rows = []
+    for name, r in results.items():
+        rows.append({"name": name, "ba": r["per_fold"]["balanced_accuracy"],
+                     "acc": r["per_fold"]["accuracy"], "f1": r["per_fold"]["macro_f1"],
+                     "kappa": r["per_fold"]["kappa"], "pooled": r["pooled"], "ci": r["ci"],
+                     "chance": r["chance"]})
+    rows.sort(key=lambda r: -r["ba"]["mean"])
+    return rows
+
+
+@access("checked")
+def run_detail(request, training_id):
+    run, sites = visible_run(request.user, training_id)
+    state, error = status_of(run)
+    done, total = progress_of(run)
+    rows = _model_rows(run)
+    best = run.results.get("release_model")
+    best_result = run.results.get("models", {}).get(best) if best else None
+    lead = is_lead(request.user, run.study)
+    releases = list(run.releases.select_related("trained_on_site", "approved_by"))
+    return render(request, "training/detail.html", {
+        "run": run, "sites": sites, "state": state, "error": error, "done": done,
+        "total": total, "percent": round(100 * done / total) if total else 0,
+        "rows": rows, "best": best, "best_result": best_result,
+        "labels": run.results.get("labels", []),
+        "confusion": list(zip(run.results.get("labels", []),
+                              best_result["pooled"]["confusion"], strict=False))
+        if best_result else [],
+        "statistics": run.results.get("statistics", {}),
+        "spec_text": json.dumps(run.spec, indent=2, sort_keys=True),
+        "releases": releases, "lead": lead,
+        "may_rerun": may_run_on(request.user, run.feature_set, sites),
+        "jobs": [j for j in run_jobs(run)],
+    })
+
+
+def run_jobs(run):
+    from portal.training.services import jobs_of
+
+    return jobs_of(run).exclude(kind="training.fold").order_by("id")
+
+
+@access("checked")
+@require_POST
+def rerun_view(request, training_id):
+    run, sites = visible_run(request.user, training_id)
+    if not may_run_on(request.user, run.feature_set, sites):
+        raise PermissionDenied("you may not start work on this feature set")
+    again = rerun(run, user=request.user)
+    messages.info(request, f"Run {run.pk} is being reproduced from its stored spec.")
+    return redirect("training:detail", training_id=again.pk)
+
+
+@access("checked")
+def compare(request, study_slug):
+    study = get_visible_study(request.user, study_slug)
+    runs = [r for r in study.training_runs.filter(state="done").select_related("feature_set")
+            [:50] if may_see(request.user, r.feature_set)]
+    chosen = request.GET.getlist("run")
+    if chosen:
+        runs = [r for r in runs if str(r.pk) in chosen]
+    table = []
+    for run in runs:
+        for row in _model_rows(run):
+            table.append({"run": run, **row})
+    table.sort(key=lambda r: -r["ba"]["mean"])
+    return render(request, "training/compare.html", {"study": study, "table": table,
+                                                     "runs": runs})
+
+
+@access("checked")
+def plot(request, training_id):
+    run, _ = visible_run(request.user, training_id)
+    if run.state != "done":
+        raise Http404("no plot yet")
+    response = HttpResponse(plots.render(run), content_type="image/svg+xml")
+    response["Cache-Control"] = "private, max-age=86400"
+    return response
+
+
+@access("checked")
+@require_POST
+def approve_view(request, release_id):
+    release = get_object_or_404(ModelRelease.objects.select_related("run__study",
+                                                                    "run__feature_set"),
+                                pk=release_id)
+    if not may_see(request.user, release.run.feature_set):
+        raise Http404("no such release")
+    if not is_lead(request.user, release.run.study):
+        raise PermissionDenied("only the study lead approves releases")
+    if approve(release, user=request.user):
+        messages.info(request, f"Release {release.pk} is now downloadable by the sites.")
+    return redirect("training:detail", training_id=release.run_id)
+
+
+def _site_may_use(user, release, site):
+    """A site's people see approved releases whose training data included their site."""
+    if release.run.study.sites.filter(pk=site.pk).count() == 0:
+        return False
+    if release.state != ReleaseState.APPROVED and not is_lead(user, release.run.study):
+        return False
+    return site in set_sites(release.run.feature_set)
+
+
+@access("checked")
+def site_releases(request, site_slug):
+    site = get_visible_site(request.user, site_slug)
+    rows = []
+    for release in ModelRelease.objects.filter(run__feature_set__versions__site=site).distinct(
+            ).select_related("run__study", "run__feature_set", "trained_on_site"):
+        if not _site_may_use(request.user, release, site):
+            continue
+        if release.trained_on_site and release.trained_on_site != site:
+            continue
+        rows.append({"release": release,
+                     "site_scores": release.scores.get("per_site", {}).get(site.slug)})
+    wide = is_operator(request.user) or bool(
+        study_roles(request.user, rows[0]["release"].run.study) & set(STUDY_WIDE_ROLES)
+    ) if rows else False
+    return render(request, "training/releases.html", {"site": site, "rows": rows,
+                                                      "wide": wide})
+
+
+@access("checked")
+def release_file(request, release_id, part, site_slug):
+    site = get_visible_site(request.user, site_slug)
+    release = get_object_or_404(ModelRelease.objects.select_related("run__study",
+                                                                    "run__feature_set"),
+                                pk=release_id)
+    if part not in RELEASE_PARTS or not _site_may_use(request.user, release, site):
+        raise Http404("no such release file")
+    require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
+    filename, content_type, field = RELEASE_PARTS[part]
+    sha = getattr(release, field)
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=site, study=release.run.study, target=release,
+           summary=f"downloaded {filename} of release {release.pk} for {site.slug}",
+           outputs=[{"release": release.pk, "file": filename, "sha256": sha}])
+    return FileResponse(blobs.open_blob(sha), as_attachment=True,
+                        filename=f"release-{release.pk}-{filename}", content_type=content_type)

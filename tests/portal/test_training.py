@@ -1,0 +1,334 @@
+"""Training runs through the portal: the spec checked against the data, fold jobs, pooled
+scores with spread, statistics, releases (skops, model card), approval, downloads, re-runs and
+the train command. The learning code's science is checked in tests/unit against
+scikit-learn and published formulas; here invented demo data checks the plumbing."""
+
+import io
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from django.core.management import CommandError, call_command
+from django.urls import reverse
+
+from portal.audit.models import Event
+from portal.datasets import blobs
+from portal.training.models import ModelRelease, TrainingRun
+from portal.training.services import (
+    TRAINING_CODE_VERSION,
+    TrainingRequestError,
+    rerun,
+    start_run,
+)
+from tests.helpers import member, run_all_pending
+from tests.portal.test_features import compute, ingest
+
+pytestmark = pytest.mark.django_db
+
+TRAINING_JOBS = ("training.run", "training.fold", "training.finish")
+
+
+def spec_for(feature_set, **changes):
+    spec = {
+        "feature_set": feature_set.pk,
+        "label": {"kind": "level"},
+        "features": {"include": ["*.relative_power.*"]},
+        "validation": {"scheme": "grouped_kfold", "n_splits": 3},
+        "models": [
+            {"learner": "lda"},
+            {"learner": "logistic"},
+            {"ensemble": "bagging", "learner": "lda", "n_members": 3},
+            {"ensemble": "stacking", "members": ["lda", "logistic"], "n_inner_splits": 2},
+        ],
+        "statistics": {"paired_test": True, "paired_splits": 3, "paired_repeats": 2,
+                       "permutations": 4, "bootstrap": 200},
+        "seed": 3,
+    }
+    spec.update(changes)
+    return spec
+
+
+@pytest.fixture
+def featured(demo_small):
+    study, versions = ingest(demo_small, [0, 2])
+    feature_set, _ = compute(versions)
+    assert feature_set.state == "done"
+    return feature_set
+
+
+def finished(spec, user=None):
+    run = start_run(spec, user=user)
+    run_all_pending(TRAINING_JOBS)
+    return TrainingRun.objects.get(pk=run.pk)
+
+
+def test_code_versions_agree():
+    from workers.learning import CODE_VERSION
+
+    assert TRAINING_CODE_VERSION == CODE_VERSION
+
+
+def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
+    run = finished(spec_for(featured))
+    assert run.state == "done", run.error
+    models = run.results["models"]
+    assert set(models) == {"lda", "logistic", "bagging-lda-3", "stacking-lda+logistic"}
+    for result in models.values():
+        spread = result["per_fold"]["balanced_accuracy"]
+        assert spread["n"] == 3 and spread["sd"] is not None  # never a mean without spread
+        assert len(result["fold_scores"]) == 3
+        assert result["ci"]["low"] <= result["pooled"]["balanced_accuracy"] <= result["ci"]["high"]
+    stats = run.results["statistics"]
+    assert {(p["ensemble"], p["learner"]) for p in stats["paired"]} == {
+        ("bagging-lda-3", "lda"), ("stacking-lda+logistic", "lda"),
+        ("stacking-lda+logistic", "logistic")}
+    assert all(p["n_folds"] == 6 for p in stats["paired"])
+    assert 0 < stats["permutation"]["p_value"] <= 1
+
+    # One pooled release, awaiting approval; its card repeats the stored scores.
+    release = ModelRelease.objects.get(run=run)
+    assert release.state == "pending" and release.model == run.results["release_model"]
+    with blobs.open_blob(release.card_sha256) as fh:
+        card = fh.read().decode()
+    ba = models[release.model]["per_fold"]["balanced_accuracy"]
+    assert f"{ba['mean']:.3f} ± {ba['sd']:.3f} SD over 3 folds" in card
+    assert "Research use only" in card and "not for decisions" in card
+
+    # Sites see it only once the study lead approves; downloads are audited.
+    site = featured.sites().order_by("slug").first()
+    analyst = member(f"analyst2-{site.slug}", role="analyst", site_slug=site.slug)[0]
+    client.force_login(analyst)
+    page = reverse("training:releases", args=[site.slug])
+    assert f"Release {release.pk}" not in client.get(page).content.decode()
+    lead = member("lead", role="study_lead", site_slug=site.slug)[0]
+    client.force_login(analyst)
+    assert client.post(reverse("training:approve", args=[release.pk])).status_code in (403, 404)
+    client.force_login(lead)
+    assert client.post(reverse("training:approve", args=[release.pk])).status_code == 302
+    client.force_login(analyst)
+    body = client.get(page).content.decode()
+    assert f"Release {release.pk}" in body and release.model_sha256 in body
+    assert "Before you download" in body
+    response = client.get(reverse("training:release_file", args=[site.slug, release.pk,
+                                                                 "model"]))
+    payload = b"".join(response.streaming_content)
+    import hashlib
+
+    assert hashlib.sha256(payload).hexdigest() == release.model_sha256
+    assert Event.objects.filter(verb="download", target_id=str(release.pk)).count() == 1
+
+    # The downloaded model loads with the release's explicit trusted types and predicts what
+    # the stored table's rows give in the portal.
+    import skops.io
+
+    from workers.learning.run import prepare_data
+    from workers.learning.spec import TrainingSpec
+    from workers.tasks.training import _table
+
+    model = skops.io.loads(payload, trusted=release.trusted_types)
+    data = prepare_data(_table(featured.table_sha256), TrainingSpec.from_dict(run.spec))
+    assert set(model.predict(data.X)) <= set(data.labels)
+
+    # Outside the portal: a fresh virtual environment with only the science package, the
+    # release files as downloaded, one BIDS recording of the training data.
+    folder = tmp_path / "release"
+    folder.mkdir()
+    (folder / "model.skops").write_bytes(payload)
+    for part, name in (("spec", "features.json"), ("card", "model-card.md")):
+        response = client.get(reverse("training:release_file", args=[site.slug, release.pk,
+                                                                     part]))
+        (folder / name).write_bytes(b"".join(response.streaming_content))
+    item = featured.items.select_related("recording__version").filter(
+        recording__version__site=site, recording__task="disruption").order_by(
+        "recording__path").first()
+    table = _table(featured.table_sha256)
+    mine = table[(table["recording"] == item.recording.path) & (table["site"] == site.slug)]
+    expected = model.predict(mine[data.columns].to_numpy(dtype=float)).tolist()
+    bids_file = demo_file(featured, item.recording)
+    outside = predict_outside(folder, bids_file, item.inputs, tmp_path)
+    assert outside["window_start_s"] == mine["window_start_s"].tolist()
+    assert outside["predicted"] == expected
+
+    # The run page shows the scores with spread, the statistics and the release.
+    client.force_login(lead)
+    detail = client.get(reverse("training:detail", args=[run.pk])).content.decode()
+    assert "± " in detail and "Nadeau" in detail and "Approve for the sites" not in detail
+    assert client.get(reverse("training:plot", args=[run.pk])).status_code == 200
+
+
+def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
+    spec = spec_for(featured, statistics={"permutations": 0})
+    first = finished(spec)
+    again = rerun(first, user=None)
+    run_all_pending(TRAINING_JOBS)
+    again.refresh_from_db()
+    assert again.rerun_of_id == first.pk
+    for name, result in first.results["models"].items():
+        assert again.results["models"][name]["fold_scores"] == result["fold_scores"]
+    digests = [ModelRelease.objects.get(run=r).model_digest for r in (first, again)]
+    assert digests[0] == digests[1]
+
+    # In a fresh process with empty caches: the same folds, predictions and model digest.
+    table = tmp_path / "table.parquet"
+    with blobs.open_blob(featured.table_sha256) as fh:
+        table.write_bytes(fh.read())
+    script = (
+        "import json, sys\n"
+        "import pandas as pd\n"
+        "from workers.learning.spec import TrainingSpec\n"
+        "from workers.learning.run import prepare_data, folds_for, fold_result,"
+        " build_estimator, needs_groups\n"
+        "from workers.learning.canonical import model_digest\n"
+        "spec = TrainingSpec.from_dict(json.loads(sys.argv[2]))\n"
+        "data = prepare_data(pd.read_parquet(sys.argv[1]), spec)\n"
+        "model = next(m for m in spec.models if m.name == sys.argv[3])\n"
+        "folds = folds_for(spec, data)\n"
+        "out = [fold_result(model, data, f, seed=spec.seed) for f in folds]\n"
+        "est = build_estimator(model, seed=spec.seed)\n"
+        "kw = {'model__groups': data.participants} if needs_groups(model) else {}\n"
+        "est.fit(data.X, data.y, **kw)\n"
+        "print(json.dumps({'scores': [r['scores'] for r in out],"
+        " 'predicted': [r['predicted'] for r in out], 'digest': model_digest(est)}))\n")
+    release = ModelRelease.objects.get(run=first)
+    # A fresh process on the same machine, configured as a worker is: its environment (the
+    # BLAS kernel chosen, e.g. OPENBLAS_CORETYPE, and one thread per numeric library decide
+    # the last bits of fitted coefficients), a new hash seed and empty numba caches.
+    import os
+
+    from workers.runtime import THREAD_VARIABLES
+
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "numba"), "PYTHONHASHSEED": "7",
+           **{name: "1" for name in THREAD_VARIABLES}}
+    out = subprocess.run([sys.executable, "-c", script, str(table), json.dumps(first.spec),
+                          release.model], capture_output=True, text=True, check=True, env=env,
+                         cwd=str(__import__("pathlib").Path(__file__).parents[2]))
+    fresh = json.loads(out.stdout)
+    stored = sorted(first.folds.filter(model=release.model, purpose="outer"),
+                    key=lambda f: f.fold)
+    assert fresh["scores"] == [f.result["scores"] for f in stored]
+    assert fresh["predicted"] == [f.result["predicted"] for f in stored]
+    assert fresh["digest"] == release.model_digest
+    # A changed input is a visible mismatch: the table without its first window.
+    import pandas as pd
+
+    pd.read_parquet(table).iloc[1:].to_parquet(table)
+    changed = first.spec
+    out = subprocess.run([sys.executable, "-c", script, str(table), json.dumps(changed),
+                          release.model], capture_output=True, text=True, check=True, env=env,
+                         cwd=str(__import__("pathlib").Path(__file__).parents[2]))
+    assert json.loads(out.stdout)["digest"] != release.model_digest
+
+    # The command prints one JSON object with per-fold and pooled scores and the release.
+    path = tmp_path / "spec.json"
+    path.write_text(json.dumps(spec))
+    buffer = io.StringIO()
+    call_command("train", "--spec", str(path), "--json", stdout=buffer)
+    started = json.loads(buffer.getvalue())
+    assert started["state"] == "running" and started["models"] == {}
+    run_all_pending(TRAINING_JOBS)
+    report = __import__("portal.training.management.commands.train",
+                        fromlist=["run_report"]).run_report(
+        TrainingRun.objects.get(pk=started["run"]))
+    assert report["state"] == "done"
+    lda = report["models"]["lda"]
+    assert len(lda["folds"]) == 3 and lda["per_fold"]["balanced_accuracy"]["sd"] is not None
+    assert report["models"][report_release_model(report)]["release"] is not None
+
+
+def demo_file(feature_set, recording):
+    """The recording's data file rebuilt from the stored blobs (as a site would have it)."""
+    import tempfile
+    from pathlib import Path
+
+    from workers.tasks.quality import recording_files
+
+    root = Path(tempfile.mkdtemp(prefix="cairn-bids-"))
+    for item in recording_files(recording):
+        blobs.copy_blob_to(item.sha256, root / item.path)
+    return root / recording.path
+
+
+def predict_outside(folder, bids_file, inputs, tmp_path):
+    """Install the package into a new venv (no Django there) and predict with the release."""
+    import os
+    from pathlib import Path
+
+    repo = Path(__file__).resolve().parents[2]
+    venv = tmp_path / "venv"
+    subprocess.run([sys.executable, "-m", "venv", str(venv)], check=True)
+    python = str(venv / "bin" / "python")
+    subprocess.run([python, "-m", "pip", "install", "--quiet",
+                    str(repo)], check=True, capture_output=True, cwd=str(tmp_path))
+    script = (
+        "import json, sys\n"
+        "import importlib.util\n"
+        "assert importlib.util.find_spec('django') is None, 'django must not be needed'\n"
+        "from workers.release import predict\n"
+        "inputs = json.loads(sys.argv[3])\n"
+        "out = predict(sys.argv[1], sys.argv[2], bad_channels=inputs['bad_channels'],"
+        " bad_segments=inputs['bad_segments'], power_line_hz=inputs['power_line_hz'])\n"
+        "print(json.dumps({'window_start_s': out['window_start_s'].tolist(),"
+        " 'predicted': out['predicted'].tolist()}))\n")
+    done = subprocess.run([python, "-c", script, str(folder), str(bids_file),
+                           json.dumps(inputs)], capture_output=True, text=True,
+                          cwd=str(tmp_path), env={**os.environ, "PYTHONPATH": "",
+                                                  "NUMBA_CACHE_DIR": str(tmp_path / "nb")})
+    assert done.returncode == 0, done.stderr[-3000:]
+    return json.loads(done.stdout)
+
+
+def report_release_model(report):
+    return next(name for name, m in report["models"].items() if m["release"] is not None)
+
+
+def test_specs_that_cannot_run_say_why(featured, tmp_path):
+    with pytest.raises(TrainingRequestError) as caught:
+        start_run(spec_for(featured, features={"include": ["*.no_such_feature.*"]}))
+    assert "no_such_feature" in str(caught.value)
+    with pytest.raises(TrainingRequestError, match="unknown learner"):
+        start_run(spec_for(featured, models=[{"learner": "oracle"}]))
+    with pytest.raises(TrainingRequestError, match="resting baseline"):
+        start_run(spec_for(featured, label={"kind": "condition"},
+                           normalisation={"participant": "baseline"}))
+    # Possible only to find out on the data: 7 folds for 6 participants.
+    run = start_run(spec_for(featured, validation={"scheme": "grouped_kfold", "n_splits": 7}))
+    from portal.jobs import runner
+    from portal.jobs.models import Job
+
+    job = Job.objects.get(kind="training.run", params__run=run.pk)
+    runner.run(job.pk)
+    job.refresh_from_db()
+    assert job.state == "failed" and "participants" in job.error
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps({"feature_set": featured.pk, "modles": []}))
+    with pytest.raises(CommandError, match="modles"):
+        call_command("train", "--spec", str(path))
+
+
+def test_demo_comparison_scores_above_chance(featured):
+    """Invented data (the generator lowers alpha and raises theta with workload): a small
+    comparison of low against high workload under participant-grouped folds, each
+    participant's features referenced to their own mean. Ensembles and baselines are all
+    reported with spread, and the best pooled score is above chance by more than the
+    binomial spread at this size (about 0.07 for ~50 windows; margin 0.15)."""
+    run = finished({"feature_set": featured.pk, "label": {"kind": "level",
+                                                          "classes": ["low", "high"]},
+                    "features": {"include": ["alpha.relative_power.*",
+                                             "theta.relative_power.*"]},
+                    "normalisation": {"participant": "mean"},
+                    "validation": {"scheme": "grouped_kfold", "n_splits": 3},
+                    "comparison": {"strategies": ["bagging", "stacking"],
+                                   "learners": ["lda", "logistic"], "members": [3]},
+                    "seed": 0})
+    assert run.state == "done", run.error
+    models = run.results["models"]
+    assert {"lda", "logistic", "bagging-lda-3", "stacking-lda-3", "bagging-logistic-3",
+            "stacking-logistic-3"} == set(models)
+    chance = next(iter(models.values()))["chance"]["balanced_accuracy"]
+    assert np.isclose(chance, 0.5)
+    assert all(r["per_fold"]["balanced_accuracy"]["sd"] is not None for r in models.values())
+    best = max(models.values(), key=lambda r: r["pooled"]["balanced_accuracy"])
+    assert best["pooled"]["balanced_accuracy"] > chance + 0.15
+    assert best["ci"]["low"] > chance

@@ -1,0 +1,353 @@
+"""Outer and inner validation splits that keep a participant's windows together.
+
+Windows cut from one recording share the participant's fingerprint (skull, electrode fit,
+alpha frequency). A classifier scored on windows of people it was trained on can recognise
+the person and, through the person, the label; grouping by participant (or by site) is what
+makes a score say something about new people.
+
+Schemes (``SCHEMES``):
+
+``leave_one_participant_out``
+    one fold per participant (scikit-learn ``LeaveOneGroupOut`` on participants);
+``grouped_kfold``
+    ``n_splits`` participant-grouped folds, repeated ``n_repeats`` times with seeds
+    ``seed + repeat``: ``StratifiedGroupKFold`` when every class is seen in at least
+    ``n_splits`` participants, otherwise ``GroupKFold`` (shuffled with the same seed), see
+    :func:`describe_outer`;
+``leave_one_site_out``
+    one fold per site (``LeaveOneGroupOut`` on sites);
+``within_participant_time``
+    one fold: the latest ``test_share`` of every participant's windows (time order) are the
+    test part. Not grouped: it measures recognition of known people.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from sklearn.model_selection import GroupKFold, LeaveOneGroupOut, StratifiedGroupKFold
+
+SCHEMES = (
+    "leave_one_participant_out",
+    "grouped_kfold",
+    "leave_one_site_out",
+    "within_participant_time",
+)
+
+_WITHIN_WARNING = (
+    "Within-participant validation tests on later windows of the same people the model was "
+    "trained on: it measures recognition of known people, not generalisation to new people."
+)
+
+
+class SchemeError(ValueError):
+    """The validation scheme cannot be applied to these data (names the scheme and what is
+    missing)."""
+
+
+@dataclass(frozen=True)
+class Fold:
+    """One outer fold: sorted row indices of its training and test parts."""
+
+    index: int
+    repeat: int
+    train: np.ndarray
+    test: np.ndarray
+    held_out: tuple
+
+
+@dataclass(frozen=True)
+class Scheme:
+    """A validation scheme by name, with its few parameters."""
+
+    name: str
+    n_splits: int = 5
+    n_repeats: int = 1
+    test_share: float = 0.25
+
+    def __post_init__(self):
+        if self.name not in SCHEMES:
+            raise SchemeError(
+                f"scheme name {self.name!r} is unknown; use one of {', '.join(SCHEMES)}")
+        if isinstance(self.n_splits, bool) or not isinstance(self.n_splits, int | np.integer) \
+                or self.n_splits < 2:
+            raise SchemeError(f"n_splits must be an integer of at least 2, got {self.n_splits!r}")
+        if isinstance(self.n_repeats, bool) or not isinstance(self.n_repeats, int | np.integer) \
+                or self.n_repeats < 1:
+            raise SchemeError(
+                f"n_repeats must be an integer of at least 1, got {self.n_repeats!r}")
+        share = self.test_share
+        if not isinstance(share, int | float | np.floating) or not 0.0 < float(share) < 1.0:
+            raise SchemeError(
+                f"test_share must be a number strictly between 0 and 1, got {share!r}")
+
+    @property
+    def warning(self) -> str:
+        """A sentence for the report when the scheme does not test new people, else ""."""
+        return _WITHIN_WARNING if self.name == "within_participant_time" else ""
+
+    @property
+    def grouped(self) -> bool:
+        """True when no participant is in both the training and the test part of a fold."""
+        return self.name != "within_participant_time"
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _labels_array(y, field="y"):
+    arr = np.asarray(y)
+    if arr.ndim != 1:
+        raise SchemeError(f"{field} must be one label per row (1-D), got shape {arr.shape}")
+    if arr.size == 0:
+        raise SchemeError(f"{field} is empty; give at least one row")
+    return arr
+
+
+def _ids_array(values, n_rows, field):
+    if values is None:
+        raise SchemeError(f"{field} is missing; give one value per row")
+    arr = np.asarray(values)
+    if arr.ndim != 1 or arr.shape[0] != n_rows:
+        raise SchemeError(
+            f"{field} must have one value per row ({n_rows}), got shape {arr.shape}")
+    # Ids as strings: held_out is reported as strings and sklearn groups by equality.
+    return arr.astype(str)
+
+
+def _class_participant_counts(y, participants):
+    """{class: number of distinct participants with at least one row of that class}."""
+    return {cls: int(np.unique(participants[y == cls]).size) for cls in np.unique(y)}
+
+
+def _stratifiable(y, participants, n_splits):
+    counts = _class_participant_counts(y, participants)
+    return all(c >= n_splits for c in counts.values()), counts
+
+
+def _grouped_splitter(y, participants, n_splits, seed):
+    stratified, _ = _stratifiable(y, participants, n_splits)
+    if stratified:
+        return StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed), True
+    return GroupKFold(n_splits=n_splits, shuffle=True, random_state=seed), False
+
+
+def _plain(value):
+    """numpy scalar -> Python scalar, so that messages read 'p1', not np.str_('p1')."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
+def _sorted_unique(values):
+    return tuple(sorted({str(v) for v in values}))
+
+
+def _fallback_reason(counts, n_splits):
+    """Why stratification is off, naming the classes seen in too few participants."""
+    short = [f"class {_plain(cls)!r} is seen in {n} participant(s)" for cls, n in counts.items()
+             if n < n_splits]
+    if not short:
+        return ""
+    return (f"{'; '.join(short)}, fewer than the {n_splits} folds: folds are grouped by "
+            "participant but not stratified by class (GroupKFold)")
+
+
+def _check_training_classes(folds, y, groups, scheme_name):
+    """Every class of the data must be in every training part, else the fold cannot learn it."""
+    classes = np.unique(y)
+    for fold in folds:
+        missing = np.setdiff1d(classes, np.unique(y[fold.train]))
+        if missing.size:
+            cls = _plain(missing[0])
+            owners = _sorted_unique(groups[y == cls])
+            raise SchemeError(
+                f"{scheme_name}: in fold {fold.index} class {cls!r} is absent from the training "
+                f"part because it is recorded only in {', '.join(owners)}; record that class in "
+                "more participants/sites, drop it, or choose another scheme")
+
+
+# --------------------------------------------------------------------------- outer folds
+
+
+def describe_outer(scheme: Scheme, *, y, participants, sites=None, order=None,
+                   seed=0) -> dict:
+    """How :func:`outer_folds` splits these data, without splitting them.
+
+    Returns ``{"scheme", "grouped", "group_by", "n_groups", "n_folds", "stratified",
+    "splitter", "stratification_note", "warning"}``. ``stratified`` is True only for
+    ``grouped_kfold`` when every class is present in at least ``n_splits`` participants
+    (``StratifiedGroupKFold``); otherwise ``GroupKFold`` is used, ``stratified`` is False and
+    ``stratification_note`` names the classes seen in too few participants.
+    """
+    y = _labels_array(y)
+    participants = _ids_array(participants, y.size, "participants")
+    name = scheme.name
+    stratified = False
+    reason = ""
+    if name == "leave_one_site_out":
+        sites_arr = _ids_array(sites, y.size, "sites")
+        group_by, n_groups = "site", int(np.unique(sites_arr).size)
+        n_folds, splitter = n_groups, "LeaveOneGroupOut"
+    elif name == "leave_one_participant_out":
+        group_by, n_groups = "participant", int(np.unique(participants).size)
+        n_folds, splitter = n_groups, "LeaveOneGroupOut"
+    elif name == "grouped_kfold":
+        group_by, n_groups = "participant", int(np.unique(participants).size)
+        stratified, counts = _stratifiable(y, participants, scheme.n_splits)
+        splitter = "StratifiedGroupKFold" if stratified else "GroupKFold"
+        reason = _fallback_reason(counts, scheme.n_splits)
+        n_folds = scheme.n_splits * scheme.n_repeats
+    else:
+        group_by, n_groups = None, int(np.unique(participants).size)
+        n_folds, splitter = 1, "last share of each participant's windows in time order"
+    return {
+        "scheme": name,
+        "grouped": scheme.grouped,
+        "group_by": group_by,
+        "n_groups": n_groups,
+        "n_folds": n_folds,
+        "stratified": bool(stratified),
+        "splitter": splitter,
+        "stratification_note": reason,
+        "warning": scheme.warning,
+    }
+
+
+def _fold(index, repeat, train, test, held_out):
+    train = np.sort(np.asarray(train, dtype=np.intp))
+    test = np.sort(np.asarray(test, dtype=np.intp))
+    return Fold(index=index, repeat=repeat, train=train, test=test, held_out=held_out)
+
+
+def _leave_one_group_out(y, groups, what, scheme_name):
+    unique = np.unique(groups)
+    if unique.size < 2:
+        raise SchemeError(
+            f"{scheme_name} needs at least 2 {what}s; the data have {unique.size}")
+    folds = []
+    dummy = np.zeros((groups.size, 1))
+    for i, (train, test) in enumerate(LeaveOneGroupOut().split(dummy, groups=groups)):
+        folds.append(_fold(i, 0, train, test, _sorted_unique(groups[test])))
+    _check_training_classes(folds, y, groups, scheme_name)
+    return folds
+
+
+def _grouped_kfold(scheme, y, participants, seed):
+    n_splits = scheme.n_splits
+    n_participants = int(np.unique(participants).size)
+    if n_participants < n_splits:
+        raise SchemeError(
+            f"grouped_kfold with {n_splits} folds needs at least {n_splits} participants; "
+            f"the data have {n_participants}. Use fewer folds or leave_one_participant_out")
+    folds = []
+    dummy = np.zeros((y.size, 1))
+    for repeat in range(scheme.n_repeats):
+        splitter, _ = _grouped_splitter(y, participants, n_splits, seed + repeat)
+        for train, test in splitter.split(dummy, y, groups=participants):
+            if test.size == 0:  # cannot happen with >= n_splits groups; kept as a guard
+                raise SchemeError(
+                    f"grouped_kfold produced an empty test fold (repeat {repeat}); "
+                    "use fewer folds")
+            folds.append(_fold(len(folds), repeat, train, test,
+                               _sorted_unique(participants[test])))
+    _check_training_classes(folds, y, participants, "grouped_kfold")
+    return folds
+
+
+def _within_participant_time(scheme, participants, order):
+    if order is None:
+        raise SchemeError(
+            "within_participant_time needs order (e.g. each window's start time) to know "
+            "which windows are the latest; pass order=")
+    order = np.asarray(order)
+    if order.ndim != 1 or order.shape[0] != participants.size:
+        raise SchemeError(
+            f"order must have one value per row ({participants.size}), got shape {order.shape}")
+    if np.issubdtype(order.dtype, np.number) and not np.all(np.isfinite(order)):
+        raise SchemeError("order contains NaN or infinite values; give a time for every row")
+    test_rows = []
+    for participant in np.unique(participants):
+        rows = np.flatnonzero(participants == participant)
+        if rows.size < 2:
+            raise SchemeError(
+                f"within_participant_time needs at least 2 windows per participant; "
+                f"participant {str(participant)!r} has {rows.size}")
+        # Round half up, and keep at least one window on each side.
+        n_test = int(math.floor(scheme.test_share * rows.size + 0.5))
+        n_test = min(max(n_test, 1), rows.size - 1)
+        by_time = rows[np.argsort(order[rows], kind="stable")]
+        test_rows.append(by_time[-n_test:])
+    test = np.concatenate(test_rows)
+    is_test = np.zeros(participants.size, dtype=bool)
+    is_test[test] = True
+    return [_fold(0, 0, np.flatnonzero(~is_test), np.flatnonzero(is_test),
+                  _sorted_unique(participants[is_test]))]
+
+
+def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None,
+                seed=0) -> list[Fold]:
+    """The outer folds of ``scheme`` on these rows.
+
+    ``participants`` are per-row ids, unique across sites (the caller writes
+    "site/participant"); ``sites`` per-row site ids (needed for ``leave_one_site_out``);
+    ``order`` per-row times (needed for ``within_participant_time``). Raises
+    :class:`SchemeError` when the data cannot support the scheme.
+    """
+    if not isinstance(scheme, Scheme):
+        raise SchemeError(f"scheme must be a Scheme, got {type(scheme).__name__}")
+    y = _labels_array(y)
+    participants = _ids_array(participants, y.size, "participants")
+    name = scheme.name
+    if name == "leave_one_site_out":
+        if sites is None:
+            raise SchemeError("leave_one_site_out needs sites (one site id per row); pass sites=")
+        return _leave_one_group_out(y, _ids_array(sites, y.size, "sites"), "site", name)
+    if name == "leave_one_participant_out":
+        return _leave_one_group_out(y, participants, "participant", name)
+    if name == "grouped_kfold":
+        return _grouped_kfold(scheme, y, participants, int(seed))
+    return _within_participant_time(scheme, participants, order)
+
+
+# --------------------------------------------------------------------------- inner splits
+
+
+def inner_splits(y, participants, *, n_splits=5, seed=0) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Participant-grouped inner folds for tuning or stacking on a training part.
+
+    ``StratifiedGroupKFold`` when every class is present in at least ``n_splits``
+    participants, else shuffled ``GroupKFold``; ``n_splits`` is reduced to the number of
+    participants when there are fewer (at least 2 are needed).
+    """
+    y = _labels_array(y)
+    participants = _ids_array(participants, y.size, "participants")
+    if isinstance(n_splits, bool) or not isinstance(n_splits, int | np.integer) or n_splits < 2:
+        raise SchemeError(f"n_splits must be an integer of at least 2, got {n_splits!r}")
+    n_participants = int(np.unique(participants).size)
+    if n_participants < 2:
+        raise SchemeError(
+            f"inner participant-grouped splits need at least 2 participants in the training "
+            f"part; it has {n_participants}")
+    n_splits = min(int(n_splits), n_participants)
+    splitter, _ = _grouped_splitter(y, participants, n_splits, int(seed))
+    dummy = np.zeros((y.size, 1))
+    return [(np.sort(train).astype(np.intp), np.sort(test).astype(np.intp))
+            for train, test in splitter.split(dummy, y, groups=participants)]
+
+
+def assert_disjoint(folds, participants, *, scheme: Scheme | None = None) -> None:
+    """Raise AssertionError naming a participant found in both parts of a fold.
+
+    Every fold given is checked; pass ``scheme`` to skip the check for a scheme that is not
+    grouped (``within_participant_time`` shares participants by design).
+    """
+    if scheme is not None and not scheme.grouped:
+        return
+    participants = np.asarray(participants).astype(str)
+    for fold in folds:
+        both = np.intersect1d(participants[fold.train], participants[fold.test])
+        if both.size:
+            raise AssertionError(
+                f"fold {fold.index} (repeat {fold.repeat}): participant {str(both[0])!r} is in "
+                f"both the training and the test part ({both.size} participant(s) shared)")
