@@ -5,6 +5,7 @@ from django.urls import path
 from portal.dashboard.views import api_me
 from portal.datasets import api
 from portal.jobs.views import api_job
+from portal.training import api as training_api
 
 app_name = "api"
 urlpatterns = [
@@ -14,4 +15,6 @@ urlpatterns = [
     path("uploads/<int:upload_id>/", api.upload_status, name="upload"),
     path("uploads/<int:upload_id>/chunks/", api.upload_chunk, name="upload_chunk"),
     path("uploads/<int:upload_id>/finish/", api.finish_upload, name="upload_finish"),
+    path("training/", training_api.create_run, name="training"),
+    path("training/<int:training_id>/", training_api.run_status, name="training_run"),
 ]

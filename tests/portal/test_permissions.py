@@ -174,7 +174,8 @@ def _counts():
 #: Pages that exist only to change something: an auditor is refused even the form.
 WRITE_ONLY = {"studies:protocol_edit", "datasets:upload_new", "api:uploads",
               "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override",
-              "features:new", "training:new", "training:rerun", "training:approve"}
+              "features:new", "training:new", "training:rerun", "training:approve",
+              "api:training"}
 
 
 def test_auditor_reads_everything_of_their_study_and_writes_nothing(client, consortium):

@@ -283,7 +283,7 @@ def report_release_model(report):
     return next(name for name, m in report["models"].items() if m["release"] is not None)
 
 
-def test_specs_that_cannot_run_say_why(featured, tmp_path):
+def test_specs_that_cannot_run_say_why(client, featured, tmp_path):
     with pytest.raises(TrainingRequestError) as caught:
         start_run(spec_for(featured, features={"include": ["*.no_such_feature.*"]}))
     assert "no_such_feature" in str(caught.value)
@@ -301,6 +301,18 @@ def test_specs_that_cannot_run_say_why(featured, tmp_path):
     runner.run(job.pk)
     job.refresh_from_db()
     assert job.state == "failed" and "participants" in job.error
+    # The same through the API.
+    lead = member("lead", role="study_lead",
+                  site_slug=featured.sites().order_by("slug").first().slug)[0]
+    client.force_login(lead)
+    url = reverse("api:training")
+    bad = client.post(url, data=json.dumps({"feature_set": featured.pk, "models": [
+        {"learner": "oracle"}]}), content_type="application/json")
+    assert bad.status_code == 400 and "models[0]" in bad.json()["errors"]
+    good = client.post(url, data=json.dumps(spec_for(featured)), content_type="application/json")
+    assert good.status_code == 201 and good.json()["state"] == "running"
+    status = client.get(reverse("api:training_run", args=[good.json()["run"]]))
+    assert status.status_code == 200 and status.json()["run"] == good.json()["run"]
     path = tmp_path / "bad.json"
     path.write_text(json.dumps({"feature_set": featured.pk, "modles": []}))
     with pytest.raises(CommandError, match="modles"):

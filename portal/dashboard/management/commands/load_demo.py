@@ -62,11 +62,16 @@ class Command(BaseCommand):
             upload = submit_path(folder, site=Site.objects.get(slug=site_slug), study=study,
                                    user=manager, via="command")
             self.stdout.write(f"submitted {what}: upload {upload.pk}")
-        # serve_demo asks for the consortium's feature set once the quality checks are done.
-        from portal.dashboard.management.commands.serve_demo import FEATURES_MARKER
+        # serve_demo asks for the consortium's feature set once the quality checks are done,
+        # then starts a first training run on it.
+        from portal.dashboard.management.commands.serve_demo import (
+            FEATURES_MARKER,
+            TRAINING_MARKER,
+        )
 
         if not FeatureSet.objects.filter(study=study).exists():
             (Path(settings.VAR_DIR) / "demo" / FEATURES_MARKER).write_text(STUDY_SLUG)
+            (Path(settings.VAR_DIR) / "demo" / TRAINING_MARKER).write_text(STUDY_SLUG)
         self._print_logins(logins)
 
     def _member(self, logins, username, role, site_slug):

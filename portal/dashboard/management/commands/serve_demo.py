@@ -8,6 +8,19 @@ from django.conf import settings
 from django.core.management.base import BaseCommand, CommandError
 
 FEATURES_MARKER = "features-wanted"
+TRAINING_MARKER = "training-wanted"
+#: The demo's first comparison run: low against high workload, participants held out.
+DEMO_SPEC = {
+    "label": {"kind": "level", "classes": ["low", "high"]},
+    "features": {"include": ["*.relative_power.*", "engagement_index.*"]},
+    "normalisation": {"participant": "mean"},
+    "validation": {"scheme": "grouped_kfold", "n_splits": 5},
+    "comparison": {"strategies": ["bagging", "stacking"], "learners": ["lda", "logistic"],
+                   "members": [5, 10]},
+    "statistics": {"paired_test": True, "permutations": 20},
+    "release": {"pooled": True, "per_site": True},
+    "seed": 0,
+}
 
 
 class Command(BaseCommand):
@@ -68,7 +81,10 @@ class Command(BaseCommand):
         feature set (load_demo leaves a marker asking for it)."""
         marker = settings.VAR_DIR / "demo" / FEATURES_MARKER
         now = time.monotonic()
-        if not marker.exists() or now < getattr(self, "_next_try", 0):
+        if now < getattr(self, "_next_try", 0):
+            return
+        if not marker.exists():
+            self._demo_training()
             return
         self._next_try = now + 5
         from portal.accounts.models import Study
@@ -89,3 +105,21 @@ class Command(BaseCommand):
         marker.unlink()
         self.stdout.write(f"asked for the demo feature set {feature_set.pk} "
                           f"({len(versions)} sites)")
+
+    def _demo_training(self):
+        """Once the demo feature set is ready, start the demo's first comparison run."""
+        marker = settings.VAR_DIR / "demo" / TRAINING_MARKER
+        if not marker.exists():
+            return
+        self._next_try = time.monotonic() + 5
+        from portal.features.models import FeatureSet
+        from portal.training.services import start_run
+
+        feature_set = FeatureSet.objects.filter(study__slug=marker.read_text().strip(),
+                                                state="done").order_by("-pk").first()
+        if feature_set is None:
+            return
+        run = start_run({**DEMO_SPEC, "feature_set": feature_set.pk}, user=None)
+        marker.unlink()
+        self.stdout.write(f"started the demo training run {run.pk} on feature set "
+                          f"{feature_set.pk}")

@@ -1,0 +1,170 @@
+"""Evaluating a spec on a table: nothing of an outer test participant enters any fit, the
+participant normalisation uses only the person's own rows, and specs say what is wrong.
+
+Sources: the leakage rule itself (every fitted step inside the outer training part, inner
+splits grouped by participant) is common practice, no source; the spies below prove it for
+our code by recording every row each fitted step sees.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.base import BaseEstimator, ClassifierMixin, TransformerMixin
+from sklearn.pipeline import Pipeline
+
+from workers.learning import run as run_module
+from workers.learning.ensembles import GroupStackingClassifier
+from workers.learning.spec import SpecError, TrainingSpec, expand_comparison
+
+SEEN = []
+
+
+class SpyStep(TransformerMixin, BaseEstimator):
+    """A pass-through step that records the row ids (column 0) it is fitted on."""
+
+    def __init__(self, tag="step"):
+        self.tag = tag
+
+    def fit(self, X, y=None):
+        SEEN.append((self.tag, set(np.asarray(X)[:, 0].astype(int).tolist()), len(X)))
+        return self
+
+    def transform(self, X):
+        return np.asarray(X)
+
+
+class SpyClassifier(ClassifierMixin, BaseEstimator):
+    def __init__(self, tag="member"):
+        self.tag = tag
+
+    def fit(self, X, y):
+        SEEN.append((self.tag, set(np.asarray(X)[:, 0].astype(int).tolist()), len(X)))
+        self.classes_ = np.unique(y)
+        return self
+
+    def predict_proba(self, X):
+        return np.full((len(X), len(self.classes_)), 1.0 / len(self.classes_))
+
+    def predict(self, X):
+        return np.repeat(self.classes_[0], len(X))
+
+
+def table(n_people=8, per=6, sites=("s1", "s2")):
+    rows = []
+    rng = np.random.default_rng(0)
+    for p in range(n_people):
+        site = sites[p % len(sites)]
+        for w in range(per):
+            level = ("low", "high")[w % 2]
+            rows.append({"site": site, "participant": f"{p:02d}", "session": "", "task": "t",
+                         "run": "", "window_start_s": float(w), "rating": 2 if level == "low"
+                         else 8, "level": level, "condition": level,
+                         "recording": f"sub-{p:02d}_run-{w % 2}.edf", "acquisition": "",
+                         "block_onset_s": 0.0, "qc_verdict": "pass",
+                         "alpha.relative_power.Pz": rng.normal(), "theta.relative_power.Fz":
+                         rng.normal()})
+    return pd.DataFrame(rows)
+
+
+def spec(**changes):
+    data = {"feature_set": 1, "validation": {"scheme": "grouped_kfold", "n_splits": 4},
+            "models": [{"learner": "lda"}], "seed": 0}
+    data.update(changes)
+    return TrainingSpec.from_dict(data, columns=["alpha.relative_power.Pz",
+                                                 "theta.relative_power.Fz"], sites=["s1", "s2"])
+
+
+def test_no_row_of_an_outer_test_participant_enters_any_fit(monkeypatch):
+    """Spies at every fitted step (imputer, scaler, stacking members on inner folds, meta
+    learner) record the rows they see; none belongs to the fold's test participants."""
+    frame = table()
+    data = run_module.prepare_data(frame, spec())
+    data.X = np.column_stack([np.arange(len(data.y)), data.X])  # column 0: the row id
+
+    def spy_estimator(model, *, seed):
+        return Pipeline([
+            ("impute", SpyStep("impute")), ("scale", SpyStep("scale")),
+            ("model", GroupStackingClassifier([("a", SpyClassifier("a")),
+                                               ("b", SpyClassifier("b"))],
+                                              final_estimator=SpyClassifier("meta"),
+                                              n_inner_splits=3, random_state=seed))])
+
+    monkeypatch.setattr(run_module, "build_estimator", spy_estimator)
+    stacking = spec(models=[{"ensemble": "stacking", "members": ["lda", "knn"]}])
+    folds = run_module.folds_for(stacking, data)
+    assert len(folds) == 4
+    for fold in folds:
+        SEEN.clear()
+        run_module.fit_fold(stacking.models[0], data, fold, seed=0)
+        test_people = set(data.participants[fold.test].tolist())
+        test_rows = set(fold.test.tolist())
+        assert SEEN, "no fit was recorded"
+        assert {tag for tag, _, _ in SEEN} == {"impute", "scale", "a", "b", "meta"}
+        for tag, rows, n in SEEN:
+            if tag == "meta":  # fitted on the members' out-of-fold outputs, one per train row
+                assert n == fold.train.size
+                continue
+            assert not rows & test_rows, f"{tag} saw test rows"
+            assert not set(data.participants[list(rows)].tolist()) & test_people, tag
+        inner = [rows for tag, rows, n in SEEN if tag == "a"]
+        assert len(inner) == 3 + 1 and inner[-1] == set(fold.train.tolist())  # 3 inner + refit
+
+
+def test_site_standardisation_uses_training_rows_only():
+    """Changing the test rows' values leaves every standardised training row unchanged."""
+    frame = table()
+    data = run_module.prepare_data(frame, spec())
+    fold = run_module.folds_for(spec(), data)[0]
+    before = run_module.site_standardise(data.X, data.sites, fold.train)
+    changed = data.X.copy()
+    changed[fold.test] += 1000.0
+    after = run_module.site_standardise(changed, data.sites, fold.train)
+    np.testing.assert_array_equal(before[fold.train], after[fold.train])
+
+
+def test_participant_normalisation_uses_only_the_persons_own_rows():
+    """Mean referencing: a participant's values depend on their rows alone (changing another
+    participant's rows changes nothing), and each participant's mean becomes 0."""
+    frame = table()
+    base = run_module.prepare_data(frame, spec(normalisation={"participant": "mean"}))
+    other = frame.copy()
+    other.loc[other["participant"] == "03", "alpha.relative_power.Pz"] += 50.0
+    moved = run_module.prepare_data(other, spec(normalisation={"participant": "mean"}))
+    keep = base.participants != "s2/03"
+    np.testing.assert_allclose(base.X[keep], moved.X[keep])
+    for person in set(base.participants.tolist()):
+        np.testing.assert_allclose(base.X[base.participants == person].mean(axis=0), 0,
+                                   atol=1e-12)
+
+
+def test_specs_name_what_is_wrong():
+    with pytest.raises(SpecError) as caught:
+        TrainingSpec.from_dict({"feature_set": "x", "label": {"kind": "mood"},
+                                "validation": {"scheme": "guess"},
+                                "models": [{"learner": "oracle"}],
+                                "features": {"include": ["gamma.*"]}},
+                               columns=["alpha.relative_power.Pz"])
+    errors = caught.value.errors
+    assert {"feature_set", "label.kind", "validation.scheme", "models[0]", "features"} <= set(
+        errors)
+    assert any("gamma.*" in m for m in errors["features"])
+
+
+def test_comparison_grid_expands_with_baselines():
+    models = expand_comparison({"strategies": ["bagging", "stacking"],
+                                "learners": ["lda", "knn"], "mixed": [["lda", "knn", "logistic"]],
+                                "members": [5, 10]})
+    names = [m.name for m in models]
+    assert "bagging-lda-5" in names and "stacking-knn-10" in names
+    assert "stacking-lda+knn+logistic-10" in names
+    assert {"lda", "knn", "logistic"} <= set(names)  # each member learner alone
+    assert len(names) == len(set(names)) == 2 * 2 * 2 + 2 + 3
+
+
+def test_a_class_with_too_few_participants_is_refused():
+    frame = table(n_people=3)
+    data = run_module.prepare_data(frame, spec())
+    from workers.learning.validation import SchemeError
+
+    with pytest.raises((run_module.DataError, SchemeError), match="participant"):
+        run_module.folds_for(spec(), data)
