@@ -56,7 +56,8 @@ def warm_up(_):
     return os.getpid()
 
 
-def one_recording(task):
+def read_part(task):
+    """What a features.recording job computes once it has the files: the recording's part."""
     import warnings
 
     import mne
@@ -70,9 +71,13 @@ def one_recording(task):
         raw = mne_bids.read_raw_bids(mne_bids.get_bids_path_from_fname(path), verbose="ERROR")
         raw.load_data(verbose="ERROR")
     picks = mne.pick_types(raw.info, eeg=True, exclude=[])
-    part = recording_part(raw.get_data(picks=picks), sfreq_hz=raw.info["sfreq"],
+    return recording_part(raw.get_data(picks=picks), sfreq_hz=raw.info["sfreq"],
                           ch_names=[raw.ch_names[i] for i in picks], inputs=inputs,
                           params=params)
+
+
+def one_recording(task):
+    part = read_part(task)
     return part.window_start_s.size, part.values.shape[1]
 
 

@@ -132,25 +132,10 @@ def demo_table(scale, out_dir):
 
 
 def _part(task):
-    from bench.features_set import _init_worker
+    from bench.features_set import _init_worker, read_part
 
     _init_worker()
-    import warnings
-
-    import mne
-    import mne_bids
-
-    from workers.features.pipeline import recording_part
-
-    path, inputs, params = task
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        raw = mne_bids.read_raw_bids(mne_bids.get_bids_path_from_fname(path), verbose="ERROR")
-        raw.load_data(verbose="ERROR")
-    picks = mne.pick_types(raw.info, eeg=True, exclude=[])
-    part = recording_part(raw.get_data(picks=picks), sfreq_hz=raw.info["sfreq"],
-                          ch_names=[raw.ch_names[i] for i in picks], inputs=inputs,
-                          params=params)
+    part = read_part(task)
     return [c["name"] for c in part.columns], part.window_start_s, part.values
 
 

@@ -12,7 +12,7 @@ from django.db import transaction
 from portal.audit.events import record
 from portal.datasets.models import DatasetVersion
 from portal.features.models import FeatureSet, FeatureSetItem
-from portal.jobs.services import enqueue
+from portal.jobs.services import enqueue, jobs_about, state_with_failures
 from portal.quality.models import QCRound
 from portal.quality.services import effective_channels, latest_overrides, runs_of
 from portal.studies.models import current_protocol
@@ -252,18 +252,9 @@ def latest_versions(study, sites=None):
 
 
 def jobs_of(feature_set):
-    from portal.jobs.models import Job
-
-    return Job.objects.filter(kind__startswith="features.", params__feature_set=feature_set.pk)
+    return jobs_about("features.", "feature_set", feature_set.pk)
 
 
 def status_of(feature_set):
     """(state, error words): a set whose recording or combining job failed is failed."""
-    from portal.jobs.models import JobState
-
-    if feature_set.state == "done":
-        return "done", ""
-    failed = jobs_of(feature_set).filter(state=JobState.FAILED).order_by("-id").first()
-    if failed is not None:
-        return "failed", failed.error
-    return feature_set.state, feature_set.error
+    return state_with_failures(feature_set, jobs_of(feature_set))

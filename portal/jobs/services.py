@@ -213,3 +213,20 @@ def sweep(now=None):
     for job_id in resent:
         send(job_id)
     return resent
+
+
+def jobs_about(prefix, key, value):
+    """Jobs whose kind starts with ``prefix`` and whose params hold ``key`` = ``value`` (the
+    jobs of one feature set or training run)."""
+    return Job.objects.filter(kind__startswith=prefix, **{f"params__{key}": value})
+
+
+def state_with_failures(obj, jobs):
+    """(state, error words) of an object computed by several jobs: "done" when it says so,
+    "failed" with the newest failed job's message, else its own state."""
+    if obj.state == "done":
+        return "done", ""
+    failed = jobs.filter(state=JobState.FAILED).order_by("-id").first()
+    if failed is not None:
+        return "failed", failed.error
+    return obj.state, obj.error

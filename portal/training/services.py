@@ -9,7 +9,7 @@ from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features.models import FeatureSet
 from portal.features.services import canonical_digest
-from portal.jobs.services import enqueue
+from portal.jobs.services import enqueue, jobs_about, state_with_failures
 from portal.training.models import ModelRelease, ReleaseState, TrainingRun
 
 #: Must equal ``workers.learning.CODE_VERSION`` (a test checks).
@@ -95,20 +95,11 @@ def approve(release, *, user):
 
 
 def jobs_of(run):
-    from portal.jobs.models import Job
-
-    return Job.objects.filter(kind__startswith="training.", params__run=run.pk)
+    return jobs_about("training.", "run", run.pk)
 
 
 def status_of(run):
-    from portal.jobs.models import JobState
-
-    if run.state == "done":
-        return "done", ""
-    failed = jobs_of(run).filter(state=JobState.FAILED).order_by("-id").first()
-    if failed is not None:
-        return "failed", failed.error
-    return run.state, run.error
+    return state_with_failures(run, jobs_of(run))
 
 
 def progress_of(run):

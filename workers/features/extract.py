@@ -81,19 +81,23 @@ class FeatureRequest:
         return [table[name] for name in names]
 
 
+def scopes(feature, request):
+    """The bands a feature runs for: each band (per-band features), the broadband signal
+    (None) plus the asked band-filtered signals (signal features), or the broadband only."""
+    if feature.per_band:
+        return list(request.bands)
+    if feature.on_bands:
+        return [None] + [b for b in request.bands if b.name in request.band_signals]
+    return [None]
+
+
 def describe_columns(request, ch_names):
     """One dict per feature column, in table order: name, feature, family, band, channel,
     unit, parameters and description. Used for the table and for its JSON sidecar."""
     columns = []
     for feature in request.selected():
         params = feature.params(request.params.get(feature.name))
-        if feature.per_band:
-            scopes = list(request.bands)
-        elif feature.on_bands:
-            scopes = [None] + [b for b in request.bands if b.name in request.band_signals]
-        else:
-            scopes = [None]
-        for band in scopes:
+        for band in scopes(feature, request):
             prefix = f"{band.name}." if band is not None else ""
             band_info = ({"name": band.name, "l_freq_hz": band.l_freq_hz,
                           "h_freq_hz": band.h_freq_hz} if band is not None else None)
@@ -151,13 +155,7 @@ def compute_features(data_v, *, sfreq_hz, ch_names, starts, window_samples, requ
     present = {name: i for i, name in enumerate(ch_names)}
     for feature in request.selected():
         params = feature.params(request.params.get(feature.name))
-        if feature.per_band:
-            scopes = list(request.bands)
-        elif feature.on_bands:
-            scopes = [None] + [b for b in request.bands if b.name in request.band_signals]
-        else:
-            scopes = [None]
-        for band in scopes:
+        for band in scopes(feature, request):
             out = np.asarray(feature.function(batch, band=band, **params), dtype=float)
             band_name = band.name if band is not None else None
             if feature.per_channel:

@@ -1,10 +1,10 @@
 import json
 import shutil
-import time
 from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
+from portal.commands import read_json_object, wait_until_settled
 from portal.datasets import blobs
 from portal.datasets.models import DatasetVersion
 from portal.features.services import FeatureRequestError, request_feature_set, status_of
@@ -40,14 +40,13 @@ class Command(BaseCommand):
         except FeatureRequestError as exc:
             raise CommandError(str(exc)) from None
         state, error = status_of(feature_set)
-        deadline = time.monotonic() + timeout_s
-        while wait and state not in ("done", "failed"):
-            if time.monotonic() > deadline:
-                raise CommandError(f"feature set {feature_set.pk} still {state} after "
-                                   f"{timeout_s:g} s; is a worker running?")
-            time.sleep(0.5)
-            feature_set.refresh_from_db()
-            state, error = status_of(feature_set)
+        if wait:
+            def status():
+                feature_set.refresh_from_db()
+                return status_of(feature_set)
+
+            state, error = wait_until_settled(status, timeout_s=timeout_s,
+                                              what=f"feature set {feature_set.pk}")
         if state == "failed":
             raise CommandError(f"feature set {feature_set.pk} failed: {error}")
         written = False
@@ -76,14 +75,4 @@ class Command(BaseCommand):
     def _params(self, path):
         if not path:
             return {}
-        try:
-            data = json.loads(Path(path).read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise CommandError(f"{path}: no such file") from None
-        except json.JSONDecodeError as exc:
-            raise CommandError(f"{path}: not valid JSON (line {exc.lineno}, column "
-                               f"{exc.colno}): {exc.msg}") from None
-        if not isinstance(data, dict):
-            raise CommandError(f"{path}: give a JSON object with any of channels, "
-                               "preprocessing, features")
-        return data
+        return read_json_object(path, "with any of channels, preprocessing, features")

@@ -1,9 +1,8 @@
 import json
-import time
-from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
+from portal.commands import read_json_object, wait_until_settled
 from portal.training.models import TrainingRun
 from portal.training.services import TrainingRequestError, start_run, status_of
 
@@ -41,27 +40,21 @@ class Command(BaseCommand):
         parser.add_argument("--json", action="store_true", help="print one JSON object")
 
     def handle(self, *args, spec, wait, timeout_s, **options):
-        try:
-            data = json.loads(Path(spec).read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise CommandError(f"{spec}: no such file") from None
-        except json.JSONDecodeError as exc:
-            raise CommandError(f"{spec}: not valid JSON (line {exc.lineno}, column "
-                               f"{exc.colno}): {exc.msg}") from None
+        data = read_json_object(spec, "a training spec; format in the README")
         try:
             run = start_run(data, user=None)
         except TrainingRequestError as exc:
             lines = [f"  {k}: {m}" for k, ms in exc.errors.items() for m in ms]
             raise CommandError(f"{spec}: the spec cannot run:\n" + "\n".join(lines)) from None
-        deadline = time.monotonic() + timeout_s
-        state = status_of(run)[0]
-        while wait and state not in ("done", "failed"):
-            if time.monotonic() > deadline:
-                raise CommandError(f"run {run.pk} still {state} after {timeout_s:g} s; is a "
-                                   "worker running?")
-            time.sleep(1.0)
-            run = TrainingRun.objects.get(pk=run.pk)
-            state = status_of(run)[0]
+        if wait:
+            def status():
+                nonlocal run
+                run = TrainingRun.objects.get(pk=run.pk)
+                return status_of(run)
+
+            wait_until_settled(status, timeout_s=timeout_s, what=f"training run {run.pk}",
+                               poll_s=1.0)
+        run = TrainingRun.objects.get(pk=run.pk)
         report = run_report(run)
         if options["json"]:
             self.stdout.write(json.dumps(report))
