@@ -120,6 +120,10 @@ class Command(BaseCommand):
         if feature_set is None:
             return
         run = start_run({**DEMO_SPEC, "feature_set": feature_set.pk}, user=None)
+        # The same without participant normalisation, to compare the two side by side.
+        plain = start_run({**DEMO_SPEC, "feature_set": feature_set.pk,
+                           "normalisation": {"participant": "none"},
+                           "release": {"pooled": False}}, user=None)
         marker.unlink()
-        self.stdout.write(f"started the demo training run {run.pk} on feature set "
-                          f"{feature_set.pk}")
+        self.stdout.write(f"started the demo training runs {run.pk} and {plain.pk} on feature "
+                          f"set {feature_set.pk}")
