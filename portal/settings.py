@@ -210,6 +210,13 @@ JOB_RESEND_AFTER_S = env_float("CAIRN_JOB_RESEND_AFTER_S", 120)
 JOB_SWEEP_EVERY_S = env_float("CAIRN_JOB_SWEEP_EVERY_S", 30)
 JOB_MAX_ATTEMPTS = int(env_float("CAIRN_JOB_MAX_ATTEMPTS", 3))
 
+# The audit chain: how often its head is anchored outside the database, and verified.
+AUDIT_ANCHOR_EVERY_S = env_float("CAIRN_AUDIT_ANCHOR_EVERY_S", 3600)
+AUDIT_VERIFY_EVERY_S = env_float("CAIRN_AUDIT_VERIFY_EVERY_S", 86400)
+# A process links its committed events after this many events or seconds, whichever first.
+AUDIT_SEAL_EVERY_EVENTS = int(env_float("CAIRN_AUDIT_SEAL_EVERY_EVENTS", 32))
+AUDIT_SEAL_EVERY_S = env_float("CAIRN_AUDIT_SEAL_EVERY_S", 2)
+
 LOGGING = {
     "version": 1,
     "disable_existing_loggers": False,

@@ -90,8 +90,12 @@ def _audit_truncate_for_flush(request):
     if connection.vendor != "postgresql":
         yield
         return
+    tables = (("audit_event", "audit_event_no_truncate"),
+              ("audit_chainlink", "audit_chainlink_no_truncate"))
     with connection.cursor() as cursor:
-        cursor.execute("ALTER TABLE audit_event ENABLE TRIGGER audit_event_no_truncate")
+        for table, trigger in tables:
+            cursor.execute(f"ALTER TABLE {table} ENABLE TRIGGER {trigger}")
     yield
-    with connection.cursor() as cursor:
-        cursor.execute("ALTER TABLE audit_event DISABLE TRIGGER audit_event_no_truncate")
+    with connection.cursor() as cursor:  # the flush after this test truncates every table
+        for table, trigger in tables:
+            cursor.execute(f"ALTER TABLE {table} DISABLE TRIGGER {trigger}")

@@ -2,6 +2,8 @@
 
 import socket
 
+from django.db import transaction
+
 from portal.audit.models import ActorKind, Event
 from portal.audit.versions import code_version, library_versions
 
@@ -14,7 +16,8 @@ def actor_snapshot(user):
         {"site": m.site.slug, "role": m.role}
         for m in user.memberships.select_related("site").order_by("site__slug", "role")
     ]
-    return {"username": user.get_username(), "superuser": user.is_superuser, "roles": roles}
+    return {"username": user.get_username(), "user_id": user.pk,
+            "superuser": user.is_superuser, "roles": roles}
 
 
 def describe(obj):
@@ -46,18 +49,23 @@ def record(
     target_type, target_id = describe(target)
     version = dict(code_version())
     version["libraries"] = library_versions()
-    return Event.objects.create(
-        verb=verb,
-        actor_kind=actor_kind,
-        actor=actor if getattr(actor, "is_authenticated", False) else None,
-        actor_snapshot=snapshot,
-        study=study,
-        site=site,
-        target_type=target_type,
-        target_id=target_id,
-        summary=summary[:300],
-        params=params or {},
-        inputs=inputs or [],
-        outputs=outputs or [],
-        code_version=version,
-    )
+    with transaction.atomic():  # the event and its queue entry: one commit
+        event = Event.objects.create(
+            verb=verb,
+            actor_kind=actor_kind,
+            actor=actor if getattr(actor, "is_authenticated", False) else None,
+            actor_snapshot=snapshot,
+            study=study,
+            site=site,
+            target_type=target_type,
+            target_id=target_id,
+            summary=summary[:300],
+            params=params or {},
+            inputs=inputs or [],
+            outputs=outputs or [],
+            code_version=version,
+        )
+        from portal.audit.chain import seal_after_commit
+
+        seal_after_commit(event)
+    return event

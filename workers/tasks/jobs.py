@@ -22,3 +22,36 @@ def run_job(self, job_id):
 @shared_task(name="cairn.sweep_jobs", acks_late=True, ignore_result=True)
 def sweep_jobs():
     return services.sweep()
+
+
+@shared_task(name="cairn.audit_seal", ignore_result=True)
+def audit_seal():
+    """Link events committed since the last seal (after-commit sealing is batched)."""
+    from portal.audit.chain import seal_pending
+
+    return seal_pending()
+
+
+@shared_task(name="cairn.audit_anchor", ignore_result=True)
+def audit_anchor():
+    """Seal events whose after-commit sealing did not run, and anchor the chain's head."""
+    from portal.audit.chain import write_anchor
+
+    return write_anchor()
+
+
+@shared_task(name="cairn.audit_verify", ignore_result=True)
+def audit_verify():
+    """Verify the whole chain, anchor it when whole, and record the outcome as an event."""
+    from portal.audit.chain import verify, write_anchor
+    from portal.audit.events import record
+
+    result = verify()
+    if result.ok:
+        write_anchor()
+    record("audit.verified", worker=True,
+           summary=("chain whole: " + f"{result.links} links") if result.ok
+           else f"chain BROKEN: {result.problem['words']}",
+           params={"ok": result.ok, "links": result.links, "head_seq": result.head_seq,
+                   "problem": result.problem})
+    return result.ok
