@@ -10,7 +10,6 @@ from django.http import FileResponse, Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.views.decorators.http import require_POST
 
-from portal.accounts.models import STUDY_WIDE_ROLES
 from portal.accounts.permissions import (
     Action,
     access,
@@ -224,11 +223,7 @@ def site_releases(request, site_slug):
             continue
         rows.append({"release": release,
                      "site_scores": release.scores.get("per_site", {}).get(site.slug)})
-    wide = is_operator(request.user) or bool(
-        study_roles(request.user, rows[0]["release"].run.study) & set(STUDY_WIDE_ROLES)
-    ) if rows else False
-    return render(request, "training/releases.html", {"site": site, "rows": rows,
-                                                      "wide": wide})
+    return render(request, "training/releases.html", {"site": site, "rows": rows})
 
 
 @access("checked")
