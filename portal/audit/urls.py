@@ -6,4 +6,7 @@ app_name = "audit"
 urlpatterns = [
     path("", views.event_list, name="events"),
     path("events.csv", views.export_csv, name="export"),
+    path("lineage/<slug:lineage_kind>/<int:object_id>/", views.lineage_page, name="lineage"),
+    path("lineage/<slug:lineage_kind>/<int:object_id>/prov.json", views.lineage_prov,
+         name="lineage_prov"),
 ]

@@ -126,3 +126,58 @@ def chain_state():
     return {"head": head, "anchor": anchors[-1] if anchors else None,
             "unsealed": Event.objects.filter(link__isnull=True).count(),
             "checked": checked}
+
+
+def _lineage_object(user, kind, object_id):
+    """The object if the user may see every site it was made from; 404 otherwise."""
+    from portal.accounts.permissions import Action, can
+    from portal.audit.lineage import resolve
+    from portal.features.views import may_see
+
+    try:
+        obj = resolve(f"{kind}:{object_id}")
+    except ValueError:
+        raise Http404("no such object") from None
+    if kind == "version":
+        allowed = can(user, Action.VIEW, site=obj.site)
+    else:
+        feature_set = obj if kind == "features" else (
+            obj.feature_set if kind == "training" else obj.run.feature_set)
+        allowed = may_see(user, feature_set)
+    if not allowed:
+        raise Http404("no such object")
+    return obj
+
+
+@access("checked")
+def lineage_page(request, lineage_kind, object_id):
+    from portal.audit.lineage import build
+
+    kind = lineage_kind
+    obj = _lineage_object(request.user, kind, object_id)
+    doc = build(obj).doc
+    rows = []
+    for record in doc.get_records():
+        attributes = {str(k): str(v) for k, v in record.attributes}
+        rows.append({"kind": type(record).__name__.replace("Prov", ""),
+                     "id": str(record.identifier) if record.identifier else "",
+                     "type": attributes.pop("prov:type", ""),
+                     "details": ", ".join(f"{k.split(':', 1)[-1]}={v}"
+                                          for k, v in attributes.items()
+                                          if not k.startswith("prov:"))})
+    rows = [r for r in rows if r["kind"] in ("Entity", "Activity", "Agent")]
+    return render(request, "audit/lineage.html", {"obj": obj, "kind": kind, "rows": rows,
+                                                  "object_id": object_id})
+
+
+@access("checked")
+def lineage_prov(request, lineage_kind, object_id):
+    from django.http import HttpResponse
+
+    kind = lineage_kind
+    from portal.audit.lineage import provenance_json
+
+    obj = _lineage_object(request.user, kind, object_id)
+    response = HttpResponse(provenance_json(obj), content_type="application/json")
+    response["Content-Disposition"] = f'attachment; filename="{kind}-{object_id}.prov.json"'
+    return response

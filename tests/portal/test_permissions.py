@@ -76,7 +76,8 @@ def fill(consortium, site_key, study_key):
             "job_id": job.pk, "token_id": token.pk, "version_id": version.pk,
             "file_id": item.pk, "round_id": qc_round.pk, "recording_id": recording.pk,
             "run_id": run.pk, "kind": "spectrum", "set_id": feature_set.pk, "fmt": "csv",
-            "plot": "by-site", **_training(site, study, feature_set)}
+            "plot": "by-site", "lineage_kind": "features", "object_id": feature_set.pk,
+            **_training(site, study, feature_set)}
 
 
 def _training(site, study, feature_set):

@@ -220,6 +220,31 @@ def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
                          cwd=str(__import__("pathlib").Path(__file__).parents[2]))
     assert json.loads(out.stdout)["digest"] != release.model_digest
 
+    # Where the run came from, as W3C PROV-JSON (the PROV data model is the outside
+    # reference: the document must deserialize with the prov package and name every file
+    # hash of the dataset versions the feature set was made from).
+    from prov.model import ProvDocument
+
+    out_file = tmp_path / "run.prov.json"
+    call_command("export_provenance", f"training:{first.pk}", "--out", str(out_file))
+    document = ProvDocument.deserialize(content=out_file.read_text(), format="json")
+    text = out_file.read_text()
+    hashes = {f.sha256 for v in featured.versions.all() for f in v.files.all()}
+    assert hashes and all(h in text for h in hashes)
+    entities = {str(r.identifier) for r in document.get_records() if r.is_element()}
+    assert f"cairn:featureset-{featured.pk}" in entities
+    assert f"cairn:model-{release.model_sha256}" in entities
+
+    from django.test import Client
+
+    site = featured.sites().order_by("slug").first()
+    reader = Client()
+    reader.force_login(member("lead", role="study_lead", site_slug=site.slug)[0])
+    page = reader.get(reverse("audit:lineage", args=["training", first.pk]))
+    assert page.status_code == 200 and f"cairn:featureset-{featured.pk}" in page.content.decode()
+    reader.force_login(member("dm-one", role="data_manager", site_slug=site.slug)[0])
+    assert reader.get(reverse("audit:lineage", args=["training", first.pk])).status_code == 404
+
     # The command prints one JSON object with per-fold and pooled scores and the release.
     path = tmp_path / "spec.json"
     path.write_text(json.dumps(spec))
