@@ -157,3 +157,20 @@ def test_demo_workload_lowers_posterior_alpha_and_raises_frontal_theta(demo_smal
     theta_rises = sum(v["high"][1] > v["low"][1] for v in people)
     assert alpha_drops == len(people) and theta_rises >= len(people) - 1, (alpha_drops,
                                                                           theta_rises)
+
+
+def test_a_recording_shorter_than_the_filter_is_left_out_with_the_reason():
+    """Plumbing: 1 s at 250 Hz cannot hold the 0.5 Hz high-pass (MNE's default design is
+    3.3 periods of the 0.5 Hz transition band, about 6.6 s, from memory)."""
+    from workers.signal import TooShortError
+
+    data = np.random.default_rng(0).standard_normal((2, 250)) * 1e-5
+    with pytest.raises(TooShortError):
+        prepare(data, sfreq_hz=250.0, ch_names=["Fz", "Pz"], power_line_hz=None,
+                bad_channels=[], settings=PrepSettings(notch=False))
+    params = {"preprocessing": {**PrepSettings().as_dict(), "channels": None},
+              "features": {"bands": BANDS, "features": ["relative_power"]}}
+    part = recording_part(data, sfreq_hz=250.0, ch_names=["Fz", "Pz"],
+                          inputs={"bad_channels": [], "bad_segments": [], "blocks": []},
+                          params=params)
+    assert "shorter than" in part.excluded_reason and part.values.size == 0

@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from workers.signal import ChannelError, PrepSettings, plan_windows, prepare
+from workers.signal import ChannelError, PrepSettings, TooShortError, plan_windows, prepare
 
 from .extract import FeatureRequest, compute_features
 
@@ -67,12 +67,7 @@ def recording_part(data_v, *, sfreq_hz, ch_names, inputs, params):
         prepared = prepare(np.asarray(data_v, dtype=float), sfreq_hz=sfreq_hz,
                            ch_names=list(ch_names), power_line_hz=inputs.get("power_line_hz"),
                            bad_channels=list(inputs.get("bad_channels", [])), settings=settings)
-    except ChannelError as exc:
-        return Part(columns=[], window_start_s=np.empty(0), block=np.empty(0, dtype=int),
-                    values=np.empty((0, 0)), excluded_reason=str(exc))
-    except ValueError as exc:
-        if "short" not in str(exc):
-            raise
+    except (ChannelError, TooShortError) as exc:
         return Part(columns=[], window_start_s=np.empty(0), block=np.empty(0, dtype=int),
                     values=np.empty((0, 0)), excluded_reason=str(exc))
     if params["preprocessing"]["channels"] is None:

@@ -156,6 +156,10 @@ def _channel_tuple(channels):
     return tuple(channels)
 
 
+class TooShortError(ValueError):
+    """A recording shorter than a filter it needs (the message says how long each is)."""
+
+
 class ChannelError(ValueError):
     """A recording lacks channels the settings need: requested channels are missing or
     ambiguous, or too few good channels are left."""
@@ -271,7 +275,7 @@ def _match_bads(bad_channels, ch_names):
 
 def _check_length(n_times, *, sfreq_hz, filter_length, what, advice):
     if filter_length > n_times:
-        raise ValueError(
+        raise TooShortError(
             f"recording is {n_times} samples ({n_times / sfreq_hz:g} s at {sfreq_hz:g} Hz) "
             f"long, shorter than the {what} ({filter_length} samples, "
             f"{filter_length / sfreq_hz:g} s); {advice}"
