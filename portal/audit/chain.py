@@ -190,17 +190,16 @@ def verify(*, seal_first=True, chunk=5000):
         result.links += 1
     result.head_seq, result.head_hash = expected_seq - 1, prev
     result.unsealed = Event.objects.filter(link__isnull=True).count()
-    by_seq = None
-    for anchor in read_anchors():
+    anchors = read_anchors()
+    by_seq = dict(ChainLink.objects.filter(seq__in={a["seq"] for a in anchors})
+                  .values_list("seq", "hash")) if anchors else {}
+    for anchor in anchors:
         result.anchors_checked += 1
         if anchor["seq"] > result.head_seq:
             return _broken(result, "cut", {"seq": anchor["seq"]}, f"link {anchor['seq']}",
                            f"chain ends at link {result.head_seq}",
                            f"the anchor of {anchor['at']} recorded link {anchor['seq']}; the "
                            f"chain ends at {result.head_seq}: newest events were removed")
-        if by_seq is None:
-            wanted = {a["seq"] for a in read_anchors()}
-            by_seq = dict(ChainLink.objects.filter(seq__in=wanted).values_list("seq", "hash"))
         if by_seq.get(anchor["seq"]) != anchor["hash"]:
             return _broken(result, "anchor", {"seq": anchor["seq"]}, anchor["hash"],
                            by_seq.get(anchor["seq"]),
