@@ -1,11 +1,21 @@
 """Writing audit events. Every state change in Cairn goes through :func:`record`."""
 
+import hashlib
+import json
 import socket
 
 from django.db import transaction
 
 from portal.audit.models import ActorKind, Event
 from portal.audit.versions import code_version, library_versions
+
+
+def canonical_sha256(value):
+    """sha256 of the canonical JSON of a JSON-ready value (sorted keys, no NaN): the content
+    hash events give for results stored as JSON."""
+    text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
 def actor_snapshot(user):

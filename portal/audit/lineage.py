@@ -2,10 +2,17 @@
 results, feature sets, models), activities (uploads, quality checks, feature computation,
 training) and agents (people and the workers), built with the ``prov`` package.
 
-``lineage(obj)`` walks upstream from a training run, model release, feature set or dataset
-version to the uploaded files, with their sha256 hashes; ``provenance(obj)`` returns the
-PROV document.
+``build(obj)`` walks upstream from a training run, model release, feature set or dataset
+version to the uploaded files, with their sha256 hashes, and records the parameters of each
+step (quality settings, feature parameters, training spec) as canonical JSON.
+
+``build(obj, full_sites=ids)`` is the view of a reader who may see only some sites: a
+dataset version of any other site appears as a summary entity (site, version number,
+manifest hash, counts of files and recordings) without its files, participants, quality
+results or the people who uploaded it.
 """
+
+import json
 
 from prov.model import ProvDocument
 
@@ -14,8 +21,13 @@ KINDS = {"training": "training.TrainingRun", "release": "training.ModelRelease",
          "features": "features.FeatureSet", "version": "datasets.DatasetVersion"}
 
 
+def _json(value):
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+
+
 class Lineage:
-    def __init__(self):
+    def __init__(self, full_sites=None):
+        self.full_sites = None if full_sites is None else set(full_sites)
         self.doc = ProvDocument()
         self.doc.add_namespace("cairn", NAMESPACE)
         self.seen = set()
@@ -34,7 +46,23 @@ class Lineage:
         return self.doc.agent(f"cairn:person-{user.get_username()}",
                               {"prov:type": "prov:Person", "cairn:username": user.get_username()})
 
+    def shows(self, site_id):
+        return self.full_sites is None or site_id in self.full_sites
+
+    def version_summary(self, version):
+        entity_id = f"cairn:version-summary-{version.pk}"
+        if self._once(entity_id):
+            self.doc.entity(entity_id, {
+                "prov:type": "cairn:DatasetVersionSummary", "cairn:site": version.site.slug,
+                "cairn:number": version.number,
+                "cairn:manifest_sha256": version.manifest_sha256,
+                "cairn:files": version.files.count(),
+                "cairn:recordings": version.recordings.count()})
+        return entity_id
+
     def version(self, version):
+        if not self.shows(version.site_id):
+            return self.version_summary(version)
         entity_id = f"cairn:version-{version.pk}"
         if not self._once(entity_id):
             return entity_id
@@ -70,12 +98,15 @@ class Lineage:
         activity = self.doc.activity(f"cairn:compute-features-{feature_set.pk}",
                                      feature_set.created_at, feature_set.finished_at,
                                      {"prov:type": "cairn:FeatureComputation",
-                                      "cairn:params_digest": feature_set.params_digest})
+                                      "cairn:params_digest": feature_set.params_digest,
+                                      "cairn:params": _json(feature_set.params)})
         self.doc.wasGeneratedBy(entity, activity)
         self.doc.wasAssociatedWith(activity, self.person(feature_set.created_by))
         for version in feature_set.versions.select_related("site", "upload"):
             self.doc.used(activity, self.version(version))
         for item in feature_set.items.select_related("qc_run", "recording"):
+            if not self.shows(item.qc_run.site_id):
+                continue
             qc_id = f"cairn:qc-{item.qc_run_id}"
             if self._once(qc_id):
                 qc = self.doc.entity(qc_id, {"prov:type": "cairn:QualityResult",
@@ -84,7 +115,9 @@ class Lineage:
                                                  item.qc_run.settings_digest})
                 check = self.doc.activity(f"cairn:quality-check-{item.qc_run_id}",
                                           item.qc_run.created_at, None,
-                                          {"prov:type": "cairn:QualityCheck"})
+                                          {"prov:type": "cairn:QualityCheck",
+                                           "cairn:code_version": item.qc_run.code_version,
+                                           "cairn:settings": _json(item.qc_run.settings)})
                 self.doc.wasGeneratedBy(qc, check)
                 self.doc.used(check, f"cairn:file-{item.recording.sha256}")
                 self.doc.wasAssociatedWith(check, self.worker)
@@ -97,7 +130,7 @@ class Lineage:
             return activity_id
         activity = self.doc.activity(activity_id, run.created_at, run.finished_at, {
             "prov:type": "cairn:Training", "cairn:spec_digest": run.spec_digest,
-            "cairn:code_version": run.code_version})
+            "cairn:code_version": run.code_version, "cairn:spec": _json(run.spec)})
         self.doc.wasAssociatedWith(activity, self.person(run.created_by))
         self.doc.used(activity, self.feature_set(run.feature_set))
         scores = self.doc.entity(f"cairn:scores-{run.pk}", {"prov:type": "cairn:Scores"})
@@ -118,9 +151,10 @@ class Lineage:
         return entity_id
 
 
-def build(obj):
-    """A Lineage walked upstream from ``obj``."""
-    lineage = Lineage()
+def build(obj, full_sites=None):
+    """A Lineage walked upstream from ``obj``; ``full_sites`` (site ids) limits what is
+    shown in full, the rest being summaries."""
+    lineage = Lineage(full_sites)
     label = obj._meta.label
     if label == "training.TrainingRun":
         lineage.training(obj)
@@ -150,5 +184,5 @@ def resolve(ref):
     return obj
 
 
-def provenance_json(obj):
-    return build(obj).doc.serialize(format="json", indent=2)
+def provenance_json(obj, full_sites=None):
+    return build(obj, full_sites).doc.serialize(format="json", indent=2)

@@ -4,12 +4,18 @@ pagination (fast at any depth: each page is an index range on (time, id)), CSV e
 import csv
 import datetime
 import io
+import json
 from urllib.parse import urlencode
 
+from django.contrib import messages
+from django.core.exceptions import PermissionDenied
 from django.db.models import Q
 from django.http import Http404, StreamingHttpResponse
-from django.shortcuts import render
+from django.shortcuts import redirect, render
+from django.urls import reverse
 from django.utils.dateparse import parse_date
+from django.utils.http import url_has_allowed_host_and_scheme
+from django.views.decorators.http import require_POST
 
 from portal.accounts.models import STUDY_WIDE_ROLES
 from portal.accounts.permissions import access, is_operator, visible_sites
@@ -128,25 +134,58 @@ def chain_state():
             "checked": checked}
 
 
+PARAMETER_KEYS = ("cairn:params", "cairn:spec", "cairn:settings")
+
+
 def _lineage_object(user, kind, object_id):
-    """The object if the user may see every site it was made from; 404 otherwise."""
+    """(object, site ids shown in full or None for all) if the user may see its lineage;
+    404 otherwise. A study-wide reader sees everything a feature set was made from; a
+    site's people see a release made available to their site, other sites summarised."""
     from portal.accounts.permissions import Action, can
     from portal.audit.lineage import resolve
-    from portal.features.views import may_see
+    from portal.features.views import may_see, set_sites
 
     try:
         obj = resolve(f"{kind}:{object_id}")
     except ValueError:
         raise Http404("no such object") from None
     if kind == "version":
-        allowed = can(user, Action.VIEW, site=obj.site)
-    else:
-        feature_set = obj if kind == "features" else (
-            obj.feature_set if kind == "training" else obj.run.feature_set)
-        allowed = may_see(user, feature_set)
-    if not allowed:
+        if can(user, Action.VIEW, site=obj.site):
+            return obj, None
         raise Http404("no such object")
-    return obj
+    feature_set = obj if kind == "features" else (
+        obj.feature_set if kind == "training" else obj.run.feature_set)
+    sites = set_sites(feature_set)
+    if may_see(user, feature_set, sites):
+        return obj, None
+    if kind == "release":
+        from portal.training.views import _site_may_use
+
+        mine = [s for s in visible_sites(user).filter(pk__in=[s.pk for s in sites])
+                if _site_may_use(user, obj, s)]
+        if mine:
+            return obj, {s.pk for s in mine}
+    raise Http404("no such object")
+
+
+def lineage_rows(doc):
+    rows = []
+    for record in doc.get_records():
+        kind = type(record).__name__.replace("Prov", "")
+        if kind not in ("Entity", "Activity", "Agent"):
+            continue
+        attributes = {str(k): str(v) for k, v in record.attributes}
+        parameters = {key.split(":", 1)[1]: json.dumps(json.loads(attributes.pop(key)),
+                                                        indent=2, sort_keys=True)
+                      for key in PARAMETER_KEYS if key in attributes}
+        rows.append({"kind": kind,
+                     "id": str(record.identifier) if record.identifier else "",
+                     "type": attributes.pop("prov:type", ""),
+                     "details": ", ".join(f"{k.split(':', 1)[-1]}={v}"
+                                          for k, v in attributes.items()
+                                          if not k.startswith("prov:")),
+                     "parameters": parameters})
+    return rows
 
 
 @access("checked")
@@ -154,30 +193,78 @@ def lineage_page(request, lineage_kind, object_id):
     from portal.audit.lineage import build
 
     kind = lineage_kind
-    obj = _lineage_object(request.user, kind, object_id)
-    doc = build(obj).doc
-    rows = []
-    for record in doc.get_records():
-        attributes = {str(k): str(v) for k, v in record.attributes}
-        rows.append({"kind": type(record).__name__.replace("Prov", ""),
-                     "id": str(record.identifier) if record.identifier else "",
-                     "type": attributes.pop("prov:type", ""),
-                     "details": ", ".join(f"{k.split(':', 1)[-1]}={v}"
-                                          for k, v in attributes.items()
-                                          if not k.startswith("prov:"))})
-    rows = [r for r in rows if r["kind"] in ("Entity", "Activity", "Agent")]
-    return render(request, "audit/lineage.html", {"obj": obj, "kind": kind, "rows": rows,
-                                                  "object_id": object_id})
+    obj, full_sites = _lineage_object(request.user, kind, object_id)
+    rows = lineage_rows(build(obj, full_sites).doc)
+    return render(request, "audit/lineage.html", {
+        "obj": obj, "kind": kind, "rows": rows, "object_id": object_id,
+        "partial": full_sites is not None})
 
 
 @access("checked")
 def lineage_prov(request, lineage_kind, object_id):
     from django.http import HttpResponse
 
-    kind = lineage_kind
     from portal.audit.lineage import provenance_json
 
-    obj = _lineage_object(request.user, kind, object_id)
-    response = HttpResponse(provenance_json(obj), content_type="application/json")
+    kind = lineage_kind
+    obj, full_sites = _lineage_object(request.user, kind, object_id)
+    response = HttpResponse(provenance_json(obj, full_sites), content_type="application/json")
     response["Content-Disposition"] = f'attachment; filename="{kind}-{object_id}.prov.json"'
     return response
+
+
+@access("checked")
+@require_POST
+def reproduce_view(request, subject_kind, object_id):
+    """Ask for a feature set (``features``) or quality result (``qc``) to be computed again
+    from its record; back to the page the form was on."""
+    from portal.accounts.permissions import Action, can, get_visible_site
+    from portal.audit import reproduce
+
+    if subject_kind == "features":
+        from portal.features.views import visible_set
+        from portal.training.views import may_run_on
+
+        obj, sites = visible_set(request.user, object_id)
+        allowed = may_run_on(request.user, obj, sites)
+        back = reverse("features:detail", kwargs={"set_id": obj.pk})
+    elif subject_kind == "qc":
+        from portal.quality.models import QCRun
+
+        obj = QCRun.objects.select_related("site").filter(pk=object_id).first()
+        if obj is None:
+            raise Http404("no such quality result")
+        get_visible_site(request.user, obj.site.slug)
+        allowed = can(request.user, Action.RUN_JOBS, site=obj.site)
+        back = reverse("dashboard:site", kwargs={"site_slug": obj.site.slug})
+    else:
+        raise Http404("nothing of that kind can be computed again")
+    if not allowed:
+        raise PermissionDenied("you may not start work on this object")
+    following = request.POST.get("next", "")
+    if following and url_has_allowed_host_and_scheme(following, allowed_hosts=None):
+        back = following
+    try:
+        reproduce.start(subject_kind, obj, user=request.user)
+    except ValueError as exc:
+        messages.error(request, str(exc))
+    else:
+        messages.info(request, f"{subject_kind} {obj.pk} is being computed again from its "
+                               "record.")
+    return redirect(back)
+
+
+@access("checked")
+def derived_page(request, lineage_kind, object_id):
+    from portal.audit.derived import derived, root_object
+
+    try:
+        obj = root_object(lineage_kind, object_id)
+        nodes = derived(request.user, lineage_kind, obj) if obj is not None else None
+    except ValueError:
+        nodes = None
+    if not nodes:
+        raise Http404("no such object")
+    return render(request, "audit/derived.html", {
+        "kind": lineage_kind, "object_id": object_id, "root": nodes[0], "nodes": nodes[1:],
+        "lineage_kinds": ("training", "features", "version")})

@@ -10,6 +10,7 @@ from django.views.decorators.http import require_POST
 
 from portal.accounts.models import Site
 from portal.accounts.permissions import Action, access, can, get_visible_study, require
+from portal.audit import reproduce
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features import plots
@@ -170,6 +171,10 @@ def set_detail(request, set_id):
         "effects": feature_set.site_effects, "column": chosen,
         "feature_columns": [n for n, c in columns.items() if c.get("kind") == "feature"],
         "may_download": may_download and state == "done",
+        **reproduce.page_context("features", feature_set,
+                                 may_start=state == "done" and all(
+                                     can(request.user, Action.RUN_JOBS, site=s,
+                                         study=feature_set.study) for s in sites)),
     })
 
 

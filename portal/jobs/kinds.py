@@ -39,6 +39,8 @@ KINDS = {
                 "workers.tasks.training:run_fold", queue="compute"),
         JobKind("training.finish", "training run: statistics and releases",
                 "workers.tasks.training:run_finish", queue="compute"),
+        JobKind("audit.reproduce", "compute a stored result again from its record",
+                "workers.tasks.reproduce:run_reproduce", queue="compute"),
     )
 }
 

@@ -43,6 +43,24 @@ class QCRun(models.Model):
         return f"QC {self.recording_sha256[:10]} ({self.verdict})"
 
 
+class QCChannel(models.Model):
+    """One channel of one quality result, good or bad by the checks: a plain table so that
+    "how often is each channel flagged at each site" is one aggregate query."""
+
+    run = models.ForeignKey(QCRun, on_delete=models.CASCADE, related_name="channel_rows")
+    channel = models.CharField(max_length=64)
+    bad = models.BooleanField()
+
+    class Meta:
+        constraints = [models.UniqueConstraint(fields=["run", "channel"],
+                                               name="one_row_per_run_channel")]
+
+    @classmethod
+    def rows_for(cls, run):
+        return [cls(run=run, channel=name[:64], bad=info.get("status") == "bad")
+                for name, info in sorted(run.result.get("channels", {}).items())]
+
+
 class QCRound(models.Model):
     """The checks of every recording of a dataset version with one set of settings."""
 

@@ -10,6 +10,7 @@ from django.shortcuts import get_object_or_404, redirect, render
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, can, require
+from portal.audit import reproduce
 from portal.audit.events import record
 from portal.datasets.models import Recording
 from portal.datasets.views import visible_version
@@ -113,6 +114,7 @@ def recording_quality(request, round_id, recording_id):
         "round": qc_round, "recording": recording, "run": run, "channels": channels,
         "form": form, "overrides": overrides,
         "history": list(recording_overrides(site, recording.sha256)),
+        **reproduce.page_context("qc", run, may_start=run is not None and may_override),
     })
 
 

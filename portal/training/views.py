@@ -140,7 +140,20 @@ def run_detail(request, training_id):
         "releases": releases, "lead": lead,
         "may_rerun": may_run_on(request.user, run.feature_set, sites),
         "jobs": [j for j in run_jobs(run)],
+        "rerun_check": _rerun_check(run, state),
     })
+
+
+def _rerun_check(run, state):
+    """For a re-run that is done: its fingerprint against the original's."""
+    from portal.audit.reproduce import training_fingerprint
+
+    original = run.rerun_of
+    if original is None or state != "done" or original.state != "done":
+        return None
+    mine, theirs = training_fingerprint(run), training_fingerprint(original)
+    return {"matches": mine == theirs, "sha256": mine, "original_sha256": theirs,
+            "original": original.pk}
 
 
 def run_jobs(run):
@@ -243,3 +256,22 @@ def release_file(request, release_id, part, site_slug):
            outputs=[{"release": release.pk, "file": filename, "sha256": sha}])
     return FileResponse(blobs.open_blob(sha), as_attachment=True,
                         filename=f"release-{release.pk}-{filename}", content_type=content_type)
+
+
+@access("checked")
+def spec_diff(request, training_id):
+    """The differences between this run's spec and another's (``?with=ID``)."""
+    from portal.audit.diff import json_diff
+
+    run, _ = visible_run(request.user, training_id)
+    other_id = request.GET.get("with", "")
+    if not other_id.isdigit():
+        messages.error(request, "Choose the run to compare with (its number).")
+        return redirect("training:detail", training_id=run.pk)
+    other, _ = visible_run(request.user, int(other_id))
+    rows = [{**row, "left": json.dumps(row["left"], sort_keys=True),
+             "right": json.dumps(row["right"], sort_keys=True)}
+            for row in json_diff(run.spec, other.spec)]
+    return render(request, "training/spec_diff.html", {
+        "run": run, "other": other, "rows": rows,
+        "same_data": run.feature_set_id == other.feature_set_id})

@@ -77,6 +77,7 @@ def fill(consortium, site_key, study_key):
             "file_id": item.pk, "round_id": qc_round.pk, "recording_id": recording.pk,
             "run_id": run.pk, "kind": "spectrum", "set_id": feature_set.pk, "fmt": "csv",
             "plot": "by-site", "lineage_kind": "features", "object_id": feature_set.pk,
+            "subject_kind": "features",
             **_training(site, study, feature_set)}
 
 
@@ -179,7 +180,7 @@ def _counts():
 WRITE_ONLY = {"studies:protocol_edit", "datasets:upload_new", "api:uploads",
               "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override",
               "features:new", "training:new", "training:rerun", "training:approve",
-              "api:training"}
+              "api:training", "audit:reproduce"}
 
 
 def test_auditor_reads_everything_of_their_study_and_writes_nothing(client, consortium):

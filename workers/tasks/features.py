@@ -58,30 +58,36 @@ def run_set(ctx):
         job.result = {"queued": queued, "reused": reused, "combining": combining}
 
 
-def run_recording(ctx):
+def compute_part(feature_set, item):
+    """(result, Parquet bytes or None when the recording is left out) of one recording of
+    a feature set, computed from its recorded inputs and the set's parameters."""
     import mne
 
     from workers.features.pipeline import part_to_parquet, recording_part
     from workers.tasks.quality import materialised, read_raw
 
+    recording = item.recording
+    with materialised(recording) as root:
+        raw = read_raw(root, recording)
+    picks = mne.pick_types(raw.info, eeg=True, exclude=[])
+    ch_names = [raw.ch_names[i] for i in picks]
+    result = recording_part(raw.get_data(picks=picks), sfreq_hz=raw.info["sfreq"],
+                            ch_names=ch_names, inputs=item.inputs, params=feature_set.params)
+    return result, (None if result.excluded_reason else part_to_parquet(result))
+
+
+def run_recording(ctx):
     feature_set = FeatureSet.objects.select_related("study").get(pk=ctx.params["feature_set"])
     item = FeatureSetItem.objects.select_related("recording__version__site").get(
         pk=ctx.params["item"])
     recording = item.recording
     part = _find_part(feature_set, item)
     if part is None:
-        ctx.progress(0, 3, "reading the recording")
-        with materialised(recording) as root:
-            raw = read_raw(root, recording)
-        picks = mne.pick_types(raw.info, eeg=True, exclude=[])
-        ch_names = [raw.ch_names[i] for i in picks]
-        ctx.progress(1, 3, "filtering and computing features")
-        result = recording_part(raw.get_data(picks=picks), sfreq_hz=raw.info["sfreq"],
-                                ch_names=ch_names, inputs=item.inputs,
-                                params=feature_set.params)
+        ctx.progress(0, 3, "reading, filtering and computing features")
+        result, part_bytes = compute_part(feature_set, item)
         table_sha = ""
-        if not result.excluded_reason:
-            table_sha, _ = blobs.put_bytes(part_to_parquet(result))
+        if part_bytes is not None:
+            table_sha, _ = blobs.put_bytes(part_bytes)
         ctx.progress(2, 3, "storing")
         defaults = {
             "site": recording.version.site, "recording_sha256": recording.sha256,
@@ -101,8 +107,9 @@ def run_recording(ctx):
                       "excluded": part.excluded_reason or None, "combining": combining}
 
 
-def build_table(feature_set):
-    """The whole table (pandas) and the column descriptions, from the stored parts."""
+def build_table(feature_set, part_frames=None):
+    """The whole table (pandas) and the column descriptions, from the stored parts, or
+    from ``part_frames`` ({item id: frame or None}) computed again."""
     import numpy as np
     import pandas as pd
 
@@ -116,10 +123,15 @@ def build_table(feature_set):
     frames, feature_names = [], []
     for item in items:
         part = item.part
-        if part.excluded_reason or not part.table_sha256:
-            continue
-        with blobs.open_blob(part.table_sha256) as fh:
-            frame = read_parquet(fh)
+        if part_frames is not None:
+            frame = part_frames[item.pk]
+            if frame is None:
+                continue
+        else:
+            if part.excluded_reason or not part.table_sha256:
+                continue
+            with blobs.open_blob(part.table_sha256) as fh:
+                frame = read_parquet(fh)
         recording = item.recording
         blocks = item.inputs["blocks"]
         block_index = frame.pop("block").to_numpy()

@@ -6,11 +6,11 @@ import tempfile
 from contextlib import contextmanager
 from pathlib import Path, PurePosixPath
 
-from portal.audit.events import record
+from portal.audit.events import canonical_sha256, record
 from portal.datasets import blobs
 from portal.datasets.models import Recording
 from portal.jobs.services import enqueue
-from portal.quality.models import QCRound, QCRun
+from portal.quality.models import QCChannel, QCRound, QCRun
 from portal.quality.services import runs_of
 
 DATA_SUFFIXES = {".edf", ".bdf", ".vhdr", ".vmrk", ".eeg", ".set", ".fdt"}
@@ -104,9 +104,25 @@ def read_raw(root, recording):
     return raw
 
 
-def run_recording(ctx):
+def compute_qc(recording, qc_settings):
+    """The quality result (JSON-ready) of one recording under stored settings."""
     from workers.qc import QCSettings, run_qc
 
+    with materialised(recording) as root:
+        raw = read_raw(root, recording)
+        marked = site_status(root / recording.path.replace(
+            PurePosixPath(recording.path).name.rsplit("_", 1)[1], "channels.tsv"))
+        positions = electrode_positions(raw)
+    known = {f for f in QCSettings.__dataclass_fields__}
+    settings = QCSettings(**{k: v for k, v in qc_settings.items() if k in known})
+    result = run_qc(raw, settings=settings, power_line_hz=recording.power_line_hz or 50.0,
+                    site_status=marked, positions=positions, random_state=0)
+    summary = result.as_dict()
+    summary["positions"] = sensor_positions(raw.ch_names, positions)
+    return summary
+
+
+def run_recording(ctx):
     recording = Recording.objects.select_related("version__site", "version__study").get(
         pk=ctx.job.target_id)
     qc_round = QCRound.objects.get(pk=ctx.params["round"])
@@ -117,19 +133,8 @@ def run_recording(ctx):
         with ctx.finish() as job:
             job.result = {"reused": True}
         return
-    ctx.progress(0, 3, "reading the recording")
-    with materialised(recording) as root:
-        raw = read_raw(root, recording)
-        marked = site_status(root / recording.path.replace(
-            PurePosixPath(recording.path).name.rsplit("_", 1)[1], "channels.tsv"))
-        positions = electrode_positions(raw)
-    known = {f for f in QCSettings.__dataclass_fields__}
-    settings = QCSettings(**{k: v for k, v in qc_round.settings.items() if k in known})
-    ctx.progress(1, 3, "checking channels and segments")
-    result = run_qc(raw, settings=settings, power_line_hz=recording.power_line_hz or 50.0,
-                    site_status=marked, positions=positions, random_state=0)
-    summary = result.as_dict()
-    summary["positions"] = sensor_positions(raw.ch_names, positions)
+    ctx.progress(0, 3, "reading the recording and checking channels and segments")
+    summary = compute_qc(recording, qc_round.settings)
     n_bad = sum(1 for c in summary["channels"].values() if c["status"] == "bad")
     with ctx.finish() as job:
         run, created = QCRun.objects.get_or_create(**key, defaults={
@@ -139,10 +144,12 @@ def run_recording(ctx):
         })
         job.result = {"qc_run": run.pk, "verdict": run.verdict}
         if created:
+            QCChannel.objects.bulk_create(QCChannel.rows_for(run))
             record("qc.finished", target=run, site=site, study=recording.version.study,
                    worker=True, summary=f"{recording.path}: {run.verdict}, {n_bad} bad "
                    f"channel(s), {100 * run.rejected_share:.1f}% of time rejected",
                    params={"settings_digest": qc_round.settings_digest,
                            "code_version": qc_round.code_version},
                    inputs=[{"recording": recording.pk, "sha256": recording.sha256}],
-                   outputs=[{"qc_run": run.pk, "verdict": run.verdict}])
+                   outputs=[{"qc_run": run.pk, "verdict": run.verdict,
+                             "result_sha256": canonical_sha256(run.result)}])

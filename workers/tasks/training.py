@@ -8,6 +8,7 @@ from functools import lru_cache
 from django.utils import timezone
 
 from portal.audit.events import record
+from portal.audit.reproduce import training_fingerprint
 from portal.datasets import blobs
 from portal.jobs.services import JobError, enqueue
 from portal.training.models import FoldScore, ModelRelease, RunState, TrainingRun
@@ -257,7 +258,8 @@ def run_finish(ctx):
                          r["per_fold"]["balanced_accuracy"]["mean"],
                          "balanced_accuracy_sd": r["per_fold"]["balanced_accuracy"]["sd"]}
                         for name, r in results.items()]
-               + [{"release": r.pk, "model_sha256": r.model_sha256} for r in stored])
+               + [{"release": r.pk, "model_sha256": r.model_sha256} for r in stored]
+               + [{"training_run": run.pk, "fingerprint": training_fingerprint(run)}])
         job.result = {"models": len(results), "releases": len(stored)}
 
 
