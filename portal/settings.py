@@ -87,6 +87,7 @@ MIDDLEWARE = [
     "django.contrib.auth.middleware.AuthenticationMiddleware",
     "portal.accounts.tokens.ApiTokenMiddleware",
     "django.contrib.messages.middleware.MessageMiddleware",
+    "portal.accounts.tz.TimeZoneMiddleware",
     "portal.accounts.tokens.OneTimePasswordMiddleware",
     "django.middleware.clickjacking.XFrameOptionsMiddleware",
 ]

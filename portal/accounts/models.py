@@ -138,6 +138,9 @@ class AccountFlags(models.Model):
         settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="account_flags"
     )
     must_change_password = models.BooleanField(default=False)
+    time_zone = models.CharField(max_length=64, blank=True,
+                                 help_text="IANA time zone for dates on pages; blank: the "
+                                           "portal's default.")
 
     @classmethod
     def require_new_password(cls, user, required=True):

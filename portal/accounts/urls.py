@@ -9,5 +9,6 @@ urlpatterns = [
     path("password/", views.password_change, name="password_change"),
     path("password/changed/", views.password_changed, name="password_changed"),
     path("tokens/", views.tokens, name="tokens"),
+    path("time-zone/", views.time_zone, name="time_zone"),
     path("tokens/<int:token_id>/revoke/", views.revoke_token, name="revoke_token"),
 ]

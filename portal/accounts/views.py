@@ -11,6 +11,7 @@ from portal.accounts import throttle
 from portal.accounts.forms import ThrottledLoginForm, TokenForm
 from portal.accounts.models import AccountFlags, ApiToken
 from portal.accounts.permissions import access
+from portal.accounts.tz import TimeZoneForm, remember_time_zone
 from portal.audit.events import record
 
 
@@ -22,6 +23,8 @@ class LoginView(auth_views.LoginView):
     def form_valid(self, form):
         response = super().form_valid(form)
         throttle.clear_failures(form.get_user().get_username())
+        remember_time_zone(self.request, AccountFlags.objects.filter(
+            user=form.get_user()).values_list("time_zone", flat=True).first() or "")
         record("login", actor=form.get_user(), summary="signed in",
                params={"address": throttle.client_address(self.request)})
         return response
@@ -76,3 +79,19 @@ def revoke_token(request, token_id):
     record("token.revoked", actor=request.user, target=token, summary=f"API token {token}")
     messages.success(request, f"Token “{token.name}” revoked; scripts using it will be refused.")
     return redirect("accounts:tokens")
+
+
+@access("account")
+def time_zone(request):
+    """The time zone dates are shown in, for this person (kept with their account)."""
+    flags = AccountFlags.objects.filter(user=request.user).first()
+    form = TimeZoneForm(request.POST or None,
+                        initial={"time_zone": flags.time_zone if flags else ""})
+    if request.method == "POST" and form.is_valid():
+        chosen = form.cleaned_data["time_zone"]
+        AccountFlags.objects.update_or_create(user=request.user,
+                                              defaults={"time_zone": chosen})
+        remember_time_zone(request, chosen)
+        messages.info(request, f"Dates are now shown in {chosen or 'the portal default'}.")
+        return redirect("accounts:time_zone")
+    return render(request, "accounts/time_zone.html", {"form": form})

@@ -57,33 +57,166 @@ def _uploads_with_jobs(uploads):
     return uploads
 
 
+SITE_SORTS = {"site": lambda r: r["site"].name.lower(),
+              "participants": lambda r: r["site"].n_participants,
+              "recordings": lambda r: r["recordings"],
+              "last-upload": lambda r: r["site"].last_upload.timestamp()
+              if r["site"].last_upload else 0,
+              "waiting": lambda r: r["site"].n_waiting,
+              "rejected": lambda r: r["site"].n_rejected,
+              "usable": lambda r: r["numbers"]["shares"]["pass"] or 0,
+              "bad-channels": lambda r: r["numbers"]["bad_channel_share"] or 0,
+              "rejected-time": lambda r: r["numbers"]["rejected_share"] or 0}
+
+
+def sort_rows(rows, key, sorts, default):
+    """Rows sorted by ``key`` (a name of ``sorts``, "-" first for descending)."""
+    name = (key or default).lstrip("-")
+    if name not in sorts:
+        name, key = default.lstrip("-"), default
+    return sorted(rows, key=sorts[name], reverse=(key or default).startswith("-")), \
+        (key or default)
+
+
+def _comparisons(study, visible_ids, limit=5):
+    """The newest finished runs of several models the reader may open, with the best
+    model's per-fold balanced accuracy (mean ± SD over folds)."""
+    from portal.training.models import RunState, TrainingRun
+
+    out = []
+    runs = (TrainingRun.objects.filter(study=study, state=RunState.DONE)
+            .select_related("feature_set").prefetch_related("feature_set__versions")
+            .order_by("-finished_at", "-id")[:limit * 4])
+    for run in runs:
+        sites = {v.site_id for v in run.feature_set.versions.all()}
+        models = run.results.get("models", {})
+        if not sites or not sites <= visible_ids or len(models) < 2:
+            continue
+        best = run.results.get("release_model") or max(
+            models, key=lambda m: models[m]["per_fold"]["balanced_accuracy"]["mean"])
+        result = models.get(best, {})
+        out.append({"run": run, "best": best, "n_models": len(models),
+                    "ba": result.get("per_fold", {}).get("balanced_accuracy", {}),
+                    "chance": result.get("chance", {}).get("balanced_accuracy"),
+                    "scheme": run.spec.get("validation", {}).get("scheme", "")})
+        if len(out) == limit:
+            break
+    return out
+
+
+def _latest_feature_set(study, visible_ids):
+    from portal.features.models import FeatureSet, FeatureSetState
+
+    for feature_set in (FeatureSet.objects.filter(study=study, state=FeatureSetState.DONE)
+                        .prefetch_related("versions").order_by("-finished_at", "-id")[:5]):
+        sites = {v.site_id for v in feature_set.versions.all()}
+        if sites and sites <= visible_ids:
+            return feature_set
+    return None
+
+
 @access("checked")
 def study_overview(request, study_slug):
+    from django.utils import timezone
+
+    from portal.dashboard import charts, headplot
+    from portal.dashboard.overview import study_numbers
+
     study = get_visible_study(request.user, study_slug)
-    sites = visible_sites(request.user).filter(studies=study)
-    uploads = Paginator(
-        Upload.objects.filter(study=study, site__in=sites).select_related("site"), PAGE_SIZE
-    ).get_page(request.GET.get("page"))
-    _uploads_with_jobs(uploads.object_list)
+    sites = list(_site_rows(visible_sites(request.user).filter(studies=study), study))
+    visible_ids = {s.pk for s in sites}
+    numbers = study_numbers(study, visible_ids, now=timezone.now())
+    rows = []
+    for site in sites:
+        n = numbers["sites"][site.pk]
+        version = n["version"]
+        rows.append({
+            "site": site, "numbers": n, "version": version,
+            "recordings": version.n_recordings if version else 0,
+            "verdict_bar": charts.share_bar(n["verdicts"], label=f"{site.name}: verdicts"),
+            "head": headplot.head_svg(n["channels_flagged"], label=site.name, size_px=200)
+            if n["channels_flagged"] else "",
+        })
+    rows, sort = sort_rows(rows, request.GET.get("sort"), SITE_SORTS, "site")
     whole = is_operator(request.user) or bool(study_roles(request.user, study) & STUDY_WIDE_ROLES)
+    weeks = sorted({w for series in numbers["upload_weeks"].values() for w in series}
+                   | {w for series in numbers["verdict_weeks"].values() for w in series})
+    feature_set = _latest_feature_set(study, visible_ids)
+    uploads = Paginator(Upload.objects.filter(study=study, site_id__in=visible_ids)
+                        .select_related("site"), PAGE_SIZE).get_page(request.GET.get("page"))
+    _uploads_with_jobs(uploads.object_list)
     return render(request, "dashboard/study.html", {
-        "study": study, "sites": _site_rows(sites, study),
-        "uploads": uploads, "whole_study": whole,
+        "study": study, "rows": rows, "sort": sort, "whole_study": whole,
+        "upload_chart": charts.weekly_bars(
+            weeks, numbers["upload_weeks"], label="Uploads per week, by outcome",
+            unit="uploads"),
+        "verdict_chart": charts.weekly_bars(
+            weeks, numbers["verdict_weeks"], label="Quality verdicts per week",
+            unit="recordings"),
+        "upload_weeks": numbers["upload_weeks"], "verdict_weeks": numbers["verdict_weeks"],
+        "weeks": weeks, "feature_set": feature_set,
+        "effects": feature_set.site_effects if feature_set else None,
+        "comparisons": _comparisons(study, visible_ids),
+        "uploads": uploads,
     })
+
+
+UPLOAD_SORTS = {"received": "created_at", "state": "state", "size": "archive_bytes",
+                "name": "label"}
+REVIEW_SORTS = {"path": "path", "verdict": "verdict", "bad-channels": "n_bad",
+                "rejected-time": "rejected"}
+
+
+def order_by_param(queryset, key, sorts, default):
+    """A queryset ordered by ``?sort=`` (a name of ``sorts``, "-" first for descending)."""
+    key = key or default
+    name = key.lstrip("-")
+    if name not in sorts:
+        key, name = default, default.lstrip("-")
+    field = sorts[name]
+    return queryset.order_by(("-" if key.startswith("-") else "") + field, "-pk"), key
 
 
 @access("checked")
 def site_page(request, site_slug):
+    from portal.dashboard.overview import latest_rounds, needing_review
+    from portal.quality.models import ChannelOverride
+    from portal.training.models import ModelRelease, ReleaseState
+
     site = get_visible_site(request.user, site_slug)
-    uploads = Paginator(
-        Upload.objects.filter(site=site).select_related("study"), PAGE_SIZE
-    ).get_page(request.GET.get("page"))
+    uploads, upload_sort = order_by_param(
+        Upload.objects.filter(site=site).select_related("study"),
+        request.GET.get("sort"), UPLOAD_SORTS, "-received")
+    uploads = Paginator(uploads, PAGE_SIZE).get_page(request.GET.get("page"))
     _uploads_with_jobs(uploads.object_list)
+    versions = list(site.versions.select_related("study").annotate(
+        n_recordings=Count("recordings")).order_by("-created_at", "-id")[:20])
+    latest = {}
+    for version in versions:
+        latest.setdefault(version.study_id, version)
+    rounds = latest_rounds(v.pk for v in latest.values())
+    review_rows, review_sort, review_round = None, "", None
+    if latest:
+        version = max(latest.values(), key=lambda v: (v.created_at, v.pk))
+        review_round = rounds.get(version.pk)
+        if review_round is not None:
+            queryset, review_sort = order_by_param(
+                needing_review(site, version, review_round), request.GET.get("review_sort"),
+                REVIEW_SORTS, "verdict")
+            review_rows = Paginator(queryset, PAGE_SIZE).get_page(
+                request.GET.get("review_page"))
+    overrides = Paginator(ChannelOverride.objects.filter(site=site).select_related(
+        "created_by"), PAGE_SIZE).get_page(request.GET.get("override_page"))
+    releases = list(ModelRelease.objects.filter(
+        run__feature_set__versions__site=site, state=ReleaseState.APPROVED,
+        run__study__sites=site).filter(Q(trained_on_site__isnull=True)
+                                        | Q(trained_on_site=site))
+        .select_related("run").distinct().order_by("-created_at", "-id")[:10])
     return render(request, "dashboard/site.html", {
-        "site": site, "uploads": uploads,
+        "site": site, "uploads": uploads, "upload_sort": upload_sort,
         "may_upload": can(request.user, Action.UPLOAD, site=site),
-        "versions": site.versions.select_related("study")
-        .annotate(n_recordings=Count("recordings"))[:20],
+        "versions": versions, "review": review_rows, "review_sort": review_sort,
+        "review_round": review_round, "overrides": overrides, "releases": releases,
     })
 
 
