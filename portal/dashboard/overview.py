@@ -75,9 +75,18 @@ def since_weeks(now):
     return now - datetime.timedelta(weeks=WEEKS_SHOWN)
 
 
+def level_order(study):
+    """The study's workload levels from the lowest rating up (its protocol's scale)."""
+    from portal.studies.models import current_protocol
+
+    scale = current_protocol(study).data.get("rating_scale", {})
+    return [lv["name"] for lv in sorted(scale.get("levels", []), key=lambda lv: lv["min"])]
+
+
 def study_numbers(study, site_ids, *, now):
     """Per site and for the study: what the overview shows. ``site_ids``: the sites the
     reader may see (already limited to the study's)."""
+    order = {name: i for i, name in enumerate(level_order(study))}
     versions = latest_versions(study, site_ids)
     rounds = latest_rounds(v.pk for v in versions.values())
     runs = current_runs(versions.values(), rounds)
@@ -128,7 +137,8 @@ def study_numbers(study, site_ids, *, now):
         site["rejected_share"] = 100.0 * site["rejected_sum"] / checked if checked else None
         total = sum(site["levels"].values())
         site["level_rows"] = [{"level": k, "n": n, "share": 100.0 * n / total}
-                              for k, n in sorted(site["levels"].items())]
+                              for k, n in sorted(site["levels"].items(), key=lambda kv: (
+                                  order.get(kv[0], len(order)), kv[0]))]
         site["round"] = rounds.get(site["version"].pk) if site["version"] else None
     return {"sites": per_site, "upload_weeks": upload_weeks,
             "verdict_weeks": {k: verdict_weeks.get(k, {}) for k in VERDICTS}}

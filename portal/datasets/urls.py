@@ -6,6 +6,7 @@ app_name = "datasets"
 urlpatterns = [
     path("sites/<slug:site_slug>/upload/", views.upload_new, name="upload_new"),
     path("uploads/<int:upload_id>/", views.upload_detail, name="upload"),
+    path("uploads/<int:upload_id>/status/", views.upload_status, name="upload_status"),
     path("versions/<int:version_id>/", views.version_detail, name="version"),
     path("versions/<int:version_id>/download/", views.download_version, name="download_version"),
     path("versions/<int:version_id>/files/<int:file_id>/", views.download_file,

@@ -54,6 +54,17 @@ def upload_detail(request, upload_id):
 
 
 @access("checked")
+def upload_status(request, upload_id):
+    """The upload's state and validation progress alone (HTML for htmx), polled until the
+    upload is accepted or rejected."""
+    upload = visible_upload(request.user, upload_id)
+    version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
+    return render(request, "datasets/_upload_status.html", {
+        "upload": upload, "job": upload_job(upload), "version": version,
+    })
+
+
+@access("checked")
 @csrf_exempt
 def upload_new(request, site_slug):
     """The web upload: one archive, or the files of a dataset folder, streamed to staging."""

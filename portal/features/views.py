@@ -145,6 +145,26 @@ def _default_column(columns):
     return features[0] if features else None
 
 
+def work_status(feature_set):
+    """What the page's self-updating status part shows of the set's work."""
+    from django.urls import reverse
+
+    state, error = status_of(feature_set)
+    total = feature_set.items.count()
+    done = feature_set.items.filter(part__isnull=False).count()
+    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings",
+            "percent": round(100 * done / total) if total else 100,
+            "final": state in ("done", "failed"),
+            "jobs": list(jobs_of(feature_set).exclude(kind="features.recording").order_by("id")),
+            "status_url": reverse("features:status", kwargs={"set_id": feature_set.pk})}
+
+
+@access("checked")
+def set_status(request, set_id):
+    feature_set, _ = visible_set(request.user, set_id)
+    return render(request, "jobs/_work_status.html", work_status(feature_set))
+
+
 @access("checked")
 def set_detail(request, set_id):
     feature_set, sites = visible_set(request.user, set_id)
@@ -160,6 +180,7 @@ def set_detail(request, set_id):
     may_download = all(can(request.user, Action.DOWNLOAD, site=s, study=feature_set.study)
                        for s in sites)
     return render(request, "features/detail.html", {
+        **work_status(feature_set),
         "set": feature_set, "sites": sites, "state": state, "error": error, "rows": rows,
         "done": done, "total": len(rows), "jobs": active,
         "kept_total": sum(r["kept"] or 0 for r in rows),

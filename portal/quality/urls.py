@@ -7,6 +7,7 @@ urlpatterns = [
     path("versions/<int:version_id>/", views.version_quality, name="version"),
     path("versions/<int:version_id>/rerun/", views.rerun, name="rerun"),
     path("rounds/<int:round_id>/", views.round_detail, name="round"),
+    path("rounds/<int:round_id>/status/", views.round_status, name="round_status"),
     path("rounds/<int:round_id>/derivative/", views.download_derivative, name="derivative"),
     path("rounds/<int:round_id>/recordings/<int:recording_id>/", views.recording_quality,
          name="recording"),

@@ -49,6 +49,34 @@ def version_quality(request, version_id):
     return redirect("quality:round", round_id=qc_round.pk)
 
 
+def work_status(qc_round):
+    """What the page's self-updating status part shows of the round's checks."""
+    from django.urls import reverse
+
+    from portal.jobs.models import Job, JobState
+    from portal.jobs.services import jobs_about
+
+    done, total = progress(qc_round)
+    planning = Job.objects.filter(kind="qc.version", target_type="quality.qcround",
+                                  target_id=str(qc_round.pk)).order_by("-id")[:1]
+    failed = jobs_about("qc.recording", "round", qc_round.pk).filter(
+        state=JobState.FAILED).order_by("-id")[:1]
+    jobs = [j for j in list(planning) + list(failed) if j.state != JobState.DONE]
+    error = next((j.error for j in jobs if j.state == JobState.FAILED), "")
+    state = "done" if done >= total else ("failed" if error else "running")
+    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings",
+            "percent": round(100 * done / total) if total else 100,
+            "final": state in ("done", "failed"),
+            "jobs": jobs,
+            "status_url": reverse("quality:round_status", kwargs={"round_id": qc_round.pk})}
+
+
+@access("checked")
+def round_status(request, round_id):
+    return render(request, "jobs/_work_status.html",
+                  work_status(visible_round(request.user, round_id)))
+
+
 @access("checked")
 def round_detail(request, round_id):
     qc_round = visible_round(request.user, round_id)
@@ -69,6 +97,7 @@ def round_detail(request, round_id):
     done, total = progress(qc_round)
     may_run = can(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
     return render(request, "quality/round.html", {
+        **work_status(qc_round),
         "round": qc_round, "version": version, "rows": rows, "done": done, "total": total,
         "percent": round(100 * done / total) if total else 100, "sort": sort,
         "rounds": version.qc_rounds.all(), "may_run": may_run,

@@ -9,6 +9,7 @@ urlpatterns = [
     path("studies/<slug:study_slug>/compare/", views.compare, name="compare"),
     path("<int:training_id>/", views.run_detail, name="detail"),
     path("<int:training_id>/rerun/", views.rerun_view, name="rerun"),
+    path("<int:training_id>/status/", views.run_status, name="status"),
     path("<int:training_id>/spec-diff/", views.spec_diff, name="spec_diff"),
     path("<int:training_id>/scores.svg", views.plot, name="plot"),
     path("releases/<int:release_id>/approve/", views.approve_view, name="approve"),

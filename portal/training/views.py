@@ -8,6 +8,7 @@ from django.contrib import messages
 from django.core.exceptions import PermissionDenied
 from django.http import FileResponse, Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
+from django.urls import reverse
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import (
@@ -117,6 +118,22 @@ def _model_rows(run):
     return rows
 
 
+def work_status(run):
+    """What the page's self-updating status part shows of the run's work."""
+    state, error = status_of(run)
+    done, total = progress_of(run)
+    return {"state": state, "error": error, "done": done, "total": total,
+            "unit": "model folds", "percent": round(100 * done / total) if total else 0,
+            "final": state in ("done", "failed"), "jobs": list(run_jobs(run)),
+            "status_url": reverse("training:status", kwargs={"training_id": run.pk})}
+
+
+@access("checked")
+def run_status(request, training_id):
+    run, _ = visible_run(request.user, training_id)
+    return render(request, "jobs/_work_status.html", work_status(run))
+
+
 @access("checked")
 def run_detail(request, training_id):
     run, sites = visible_run(request.user, training_id)
@@ -128,6 +145,7 @@ def run_detail(request, training_id):
     lead = is_lead(request.user, run.study)
     releases = list(run.releases.select_related("trained_on_site", "approved_by"))
     return render(request, "training/detail.html", {
+        **work_status(run),
         "run": run, "sites": sites, "state": state, "error": error, "done": done,
         "total": total, "percent": round(100 * done / total) if total else 0,
         "rows": rows, "best": best, "best_result": best_result,
