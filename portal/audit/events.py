@@ -10,11 +10,24 @@ from portal.audit.models import ActorKind, Event
 from portal.audit.versions import code_version, library_versions
 
 
+def _stored_form(value):
+    """The value as the database gives it back: PostgreSQL's JSON numbers have no negative
+    zero, so -0.0 is stored (and hashed) as 0.0."""
+    if isinstance(value, float) and value == 0.0:
+        return 0.0
+    if isinstance(value, dict):
+        return {key: _stored_form(item) for key, item in value.items()}
+    if isinstance(value, list | tuple):
+        return [_stored_form(item) for item in value]
+    return value
+
+
 def canonical_sha256(value):
-    """sha256 of the canonical JSON of a JSON-ready value (sorted keys, no NaN): the content
-    hash events give for results stored as JSON."""
-    text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False)
+    """sha256 of the canonical JSON of a JSON-ready value (sorted keys, no NaN, no negative
+    zero): the content hash events give for results stored as JSON, equal before and after
+    the database stored them."""
+    text = json.dumps(_stored_form(value), sort_keys=True, separators=(",", ":"),
+                      ensure_ascii=False, allow_nan=False)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 

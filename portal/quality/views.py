@@ -64,7 +64,7 @@ def work_status(qc_round):
     jobs = [j for j in list(planning) + list(failed) if j.state != JobState.DONE]
     error = next((j.error for j in jobs if j.state == JobState.FAILED), "")
     state = "done" if done >= total else ("failed" if error else "running")
-    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings",
+    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings checked",
             "percent": round(100 * done / total) if total else 100,
             "final": state in ("done", "failed"),
             "jobs": jobs,

@@ -123,7 +123,7 @@ def work_status(run):
     state, error = status_of(run)
     done, total = progress_of(run)
     return {"state": state, "error": error, "done": done, "total": total,
-            "unit": "model folds", "percent": round(100 * done / total) if total else 0,
+            "unit": "model folds done", "percent": round(100 * done / total) if total else 0,
             "final": state in ("done", "failed"), "jobs": list(run_jobs(run)),
             "status_url": reverse("training:status", kwargs={"training_id": run.pk})}
 

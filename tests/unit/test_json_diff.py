@@ -22,3 +22,13 @@ def test_equal_documents_and_number_types():
         {"path": "x", "change": "changed", "left": True, "right": 1}]
     assert json_diff({"x": None}, {}) == [
         {"path": "x", "change": "removed", "left": None, "right": None}]
+
+
+def test_content_hash_is_the_same_after_the_database_drops_negative_zero():
+    """PostgreSQL's JSON numbers have no negative zero (checked here with psql:
+    '{"a": -0.0}'::jsonb gives {"a": 0.0}), so the hash of a stored result must not depend
+    on the sign of a zero."""
+    from portal.audit.events import canonical_sha256
+
+    assert canonical_sha256({"a": [-0.0, 1.5]}) == canonical_sha256({"a": [0.0, 1.5]})
+    assert canonical_sha256({"a": 1.0}) != canonical_sha256({"a": 1.5})
