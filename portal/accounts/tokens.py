@@ -22,6 +22,9 @@ class ApiTokenMiddleware:
         return self.get_response(request)
 
 
+PASSWORD_CHOSEN = "cairn_password_chosen"
+
+
 class OneTimePasswordMiddleware:
     """Sends a person still on their one-time password to the password page first."""
 
@@ -37,9 +40,14 @@ class OneTimePasswordMiddleware:
         from portal.accounts.models import AccountFlags
 
         user = request.user
+        # A session that once found its password chosen keeps that answer (a new password
+        # or an operator's reset ends the session, so it cannot go stale).
         if (user.is_authenticated and request.api_token is None
                 and not request.path.startswith(self.ALLOWED)
-                and AccountFlags.needs_new_password(user)):
+                and not request.session.get(PASSWORD_CHOSEN)):
+            if not AccountFlags.needs_new_password(user):
+                request.session[PASSWORD_CHOSEN] = True
+                return self.get_response(request)
             messages.info(request, "You signed in with a one-time password: choose your own "
                                    "password before going on.")
             return redirect("accounts:password_change")

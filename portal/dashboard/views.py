@@ -21,6 +21,23 @@ from portal.datasets.models import Upload, UploadState
 from portal.jobs.models import Job
 
 PAGE_SIZE = 25
+SVG_CACHE_S = 24 * 3600
+
+
+def cached_svg(kind, draw, *args, **kwargs):
+    """An inline figure drawn once per content: the cache key is the sha256 of what is
+    drawn (the numbers and labels), so new numbers give a new figure and nothing goes stale."""
+    import hashlib
+
+    from django.core.cache import cache
+
+    payload = repr((kind, args, sorted(kwargs.items())))  # dicts keep their order
+    key = f"cairn-svg-{hashlib.sha256(payload.encode()).hexdigest()}"
+    svg = cache.get(key)
+    if svg is None:
+        svg = draw(*args, **kwargs)
+        cache.set(key, svg, SVG_CACHE_S)
+    return svg
 
 
 def _site_rows(sites, study=None):
@@ -133,8 +150,10 @@ def study_overview(request, study_slug):
         rows.append({
             "site": site, "numbers": n, "version": version,
             "recordings": version.n_recordings if version else 0,
-            "verdict_bar": charts.share_bar(n["verdicts"], label=f"{site.name}: verdicts"),
-            "head": headplot.head_svg(n["channels_flagged"], label=site.name, size_px=200)
+            "verdict_bar": cached_svg("share", charts.share_bar, n["verdicts"],
+                                      label=f"{site.name}: verdicts"),
+            "head": cached_svg("head", headplot.head_svg, dict(sorted(
+                n["channels_flagged"].items())), label=site.name, size_px=200)
             if n["channels_flagged"] else "",
         })
     rows, sort = sort_rows(rows, request.GET.get("sort"), SITE_SORTS, "site")
@@ -147,12 +166,11 @@ def study_overview(request, study_slug):
     _uploads_with_jobs(uploads.object_list)
     return render(request, "dashboard/study.html", {
         "study": study, "rows": rows, "sort": sort, "whole_study": whole,
-        "upload_chart": charts.weekly_bars(
-            weeks, numbers["upload_weeks"], label="Uploads per week, by outcome",
-            unit="uploads"),
-        "verdict_chart": charts.weekly_bars(
-            weeks, numbers["verdict_weeks"], label="Quality verdicts per week",
-            unit="recordings"),
+        "upload_chart": cached_svg("weeks", charts.weekly_bars, weeks, numbers["upload_weeks"],
+                                   label="Uploads per week, by outcome", unit="uploads"),
+        "verdict_chart": cached_svg("weeks", charts.weekly_bars, weeks,
+                                    numbers["verdict_weeks"], label="Quality verdicts per week",
+                                    unit="recordings"),
         "upload_weeks": numbers["upload_weeks"], "verdict_weeks": numbers["verdict_weeks"],
         "weeks": weeks, "feature_set": feature_set,
         "effects": feature_set.site_effects if feature_set else None,

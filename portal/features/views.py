@@ -152,7 +152,8 @@ def work_status(feature_set):
     state, error = status_of(feature_set)
     total = feature_set.items.count()
     done = feature_set.items.filter(part__isnull=False).count()
-    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings computed",
+    return {"state": state, "error": error, "done": done, "total": total,
+            "unit": "recordings computed",
             "percent": round(100 * done / total) if total else 100,
             "final": state in ("done", "failed"),
             "jobs": list(jobs_of(feature_set).exclude(kind="features.recording").order_by("id")),

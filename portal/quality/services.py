@@ -49,17 +49,29 @@ def start_round(version, *, user=None, qc_settings=None):
     return qc_round, created
 
 
+def runs_query(qc_round):
+    """The round's results as a queryset (one per checked recording file)."""
+    shas = qc_round.version.recordings.values("sha256")
+    return QCRun.objects.filter(
+        site_id=qc_round.version.site_id, recording_sha256__in=shas,
+        settings_digest=qc_round.settings_digest, code_version=qc_round.code_version)
+
+
 def runs_of(qc_round):
     """{recording sha256: QCRun} for the round's recordings that have been checked."""
-    shas = qc_round.version.recordings.values_list("sha256", flat=True)
-    return {run.recording_sha256: run for run in QCRun.objects.filter(
-        site=qc_round.version.site, recording_sha256__in=shas,
-        settings_digest=qc_round.settings_digest, code_version=qc_round.code_version)}
+    return {run.recording_sha256: run for run in runs_query(qc_round)}
+
+
+def run_for(qc_round, recording):
+    """The round's result for one recording, or None if not checked yet."""
+    return QCRun.objects.filter(
+        site_id=qc_round.version.site_id, recording_sha256=recording.sha256,
+        settings_digest=qc_round.settings_digest, code_version=qc_round.code_version).first()
 
 
 def progress(qc_round):
     total = qc_round.version.recordings.count()
-    done = len(runs_of(qc_round))
+    done = runs_query(qc_round).values("recording_sha256").distinct().count()
     return done, total
 
 

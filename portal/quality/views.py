@@ -22,7 +22,8 @@ from portal.quality.services import (
     effective_channels,
     latest_overrides,
     progress,
-    runs_of,
+    run_for,
+    runs_query,
     set_override,
     start_round,
 )
@@ -64,7 +65,8 @@ def work_status(qc_round):
     jobs = [j for j in list(planning) + list(failed) if j.state != JobState.DONE]
     error = next((j.error for j in jobs if j.state == JobState.FAILED), "")
     state = "done" if done >= total else ("failed" if error else "running")
-    return {"state": state, "error": error, "done": done, "total": total, "unit": "recordings checked",
+    return {"state": state, "error": error, "done": done, "total": total,
+            "unit": "recordings checked",
             "percent": round(100 * done / total) if total else 100,
             "final": state in ("done", "failed"),
             "jobs": jobs,
@@ -81,7 +83,10 @@ def round_status(request, round_id):
 def round_detail(request, round_id):
     qc_round = visible_round(request.user, round_id)
     version = qc_round.version
-    runs = runs_of(qc_round)
+    from django.db.models.fields.json import KeyTransform
+
+    runs = {run.recording_sha256: run for run in runs_query(qc_round).defer(
+        "result", "settings").annotate(reasons=KeyTransform("verdict_reasons", "result"))}
     rows = []
     for recording in version.recordings.select_related("participant"):
         run = runs.get(recording.sha256)
@@ -134,7 +139,7 @@ def _recording_in_round(user, round_id, recording_id):
 def recording_quality(request, round_id, recording_id):
     qc_round, recording = _recording_in_round(request.user, round_id, recording_id)
     site = qc_round.version.site
-    run = runs_of(qc_round).get(recording.sha256)
+    run = run_for(qc_round, recording)
     overrides = latest_overrides(site, recording.sha256)
     channels = effective_channels(run, overrides) if run else {}
     may_override = can(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
