@@ -6,6 +6,7 @@ dataset) and, for quality, the newest round of checks of that version.
 """
 
 import datetime
+import hashlib
 
 from django.db.models import Count, F, OuterRef, Q, Subquery, Sum
 from django.db.models.functions import TruncWeek
@@ -81,6 +82,38 @@ def level_order(study):
 
     scale = current_protocol(study).data.get("rating_scale", {})
     return [lv["name"] for lv in sorted(scale.get("levels", []), key=lambda lv: lv["min"])]
+
+
+NUMBERS_CACHE_S = 3600
+
+
+def data_signature(study, site_ids):
+    """What the overview's numbers depend on, in three cheap aggregate queries: any new or
+    finished upload, new dataset version, new quality round or result changes it."""
+    from django.db.models import Max
+
+    uploads = Upload.objects.filter(study=study, site_id__in=site_ids).aggregate(
+        n=Count("id"), last=Max("id"), finished=Max("finished_at"))
+    versions = QCRound.objects.filter(version__study=study, version__site_id__in=site_ids
+                                      ).aggregate(version=Max("version_id"), round=Max("id"))
+    runs = QCRun.objects.filter(site_id__in=site_ids).aggregate(last=Max("id"), n=Count("id"))
+    return (uploads["n"], uploads["last"], str(uploads["finished"]), versions["version"],
+            versions["round"], runs["last"], runs["n"])
+
+
+def cached_study_numbers(study, site_ids, *, now):
+    """:func:`study_numbers`, kept per (study, readable sites, data signature, week): the
+    numbers of unchanged data are not computed twice."""
+    from django.core.cache import cache
+
+    key = ("cairn-overview", study.pk, tuple(sorted(site_ids)), data_signature(study, site_ids),
+           now.date().isocalendar()[:2])
+    digest = "cairn-overview-" + hashlib.sha256(repr(key).encode()).hexdigest()
+    numbers = cache.get(digest)
+    if numbers is None:
+        numbers = study_numbers(study, site_ids, now=now)
+        cache.set(digest, numbers, NUMBERS_CACHE_S)
+    return numbers
 
 
 def study_numbers(study, site_ids, *, now):

@@ -137,12 +137,12 @@ def study_overview(request, study_slug):
     from django.utils import timezone
 
     from portal.dashboard import charts, headplot
-    from portal.dashboard.overview import study_numbers
+    from portal.dashboard.overview import cached_study_numbers
 
     study = get_visible_study(request.user, study_slug)
     sites = list(_site_rows(visible_sites(request.user).filter(studies=study), study))
     visible_ids = {s.pk for s in sites}
-    numbers = study_numbers(study, visible_ids, now=timezone.now())
+    numbers = cached_study_numbers(study, visible_ids, now=timezone.now())
     rows = []
     for site in sites:
         n = numbers["sites"][site.pk]
