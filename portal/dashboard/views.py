@@ -225,11 +225,13 @@ def site_page(request, site_slug):
                 request.GET.get("review_page"))
     overrides = Paginator(ChannelOverride.objects.filter(site=site).select_related(
         "created_by"), PAGE_SIZE).get_page(request.GET.get("override_page"))
+    from portal.features.models import FeatureSet
+
     releases = list(ModelRelease.objects.filter(
-        run__feature_set__versions__site=site, state=ReleaseState.APPROVED,
-        run__study__sites=site).filter(Q(trained_on_site__isnull=True)
-                                        | Q(trained_on_site=site))
-        .select_related("run").distinct().order_by("-created_at", "-id")[:10])
+        run__feature_set__in=FeatureSet.objects.filter(versions__site=site).values("pk"),
+        run__study__in=site.studies.values("pk"), state=ReleaseState.APPROVED).filter(
+        Q(trained_on_site__isnull=True) | Q(trained_on_site=site))
+        .order_by("-created_at", "-id")[:10])
     return render(request, "dashboard/site.html", {
         "site": site, "uploads": uploads, "upload_sort": upload_sort,
         "may_upload": can(request.user, Action.UPLOAD, site=site),

@@ -114,3 +114,21 @@ def test_the_overview_numbers_follow_new_data(client):
     Upload.objects.create(site=site, study=made["study"], source="web", label="again.zip",
                           state="rejected", errors=[{"path": "x", "message": "invented"}])
     assert int(rejected_cell()) == before + 1
+
+
+def test_the_site_page_lists_the_approved_releases_of_its_data(client):
+    """Plumbing on invented rows: a site sees the approved pooled release trained with its
+    data, not the one awaiting approval."""
+    from portal.training.models import ModelRelease
+
+    made = make_study(24, slug="shelf", seed=4)
+    site = made["sites"][0]
+    approved = ModelRelease.objects.filter(run__study=made["study"], state="approved")
+    pending = ModelRelease.objects.filter(run__study=made["study"], state="pending")
+    assert approved.exists() and pending.exists()
+    client.force_login(made["users"]["data_managers"][site.slug])
+    body = client.get(reverse("dashboard:site", args=[site.slug])).content.decode()
+    for release in approved:
+        assert f"Release {release.pk}:" in body
+    for release in pending:
+        assert f"Release {release.pk}:" not in body
