@@ -149,15 +149,14 @@ def work_status(feature_set):
     """What the page's self-updating status part shows of the set's work."""
     from django.urls import reverse
 
+    from portal.jobs.services import work_status as context
+
     state, error = status_of(feature_set)
-    total = feature_set.items.count()
-    done = feature_set.items.filter(part__isnull=False).count()
-    return {"state": state, "error": error, "done": done, "total": total,
-            "unit": "recordings computed",
-            "percent": round(100 * done / total) if total else 100,
-            "final": state in ("done", "failed"),
-            "jobs": list(jobs_of(feature_set).exclude(kind="features.recording").order_by("id")),
-            "status_url": reverse("features:status", kwargs={"set_id": feature_set.pk})}
+    return context(
+        state=state, error=error, total=feature_set.items.count(),
+        done=feature_set.items.filter(part__isnull=False).count(), unit="recordings computed",
+        jobs=list(jobs_of(feature_set).exclude(kind="features.recording").order_by("id")),
+        status_url=reverse("features:status", kwargs={"set_id": feature_set.pk}))
 
 
 @access("checked")
@@ -169,25 +168,21 @@ def set_status(request, set_id):
 @access("checked")
 def set_detail(request, set_id):
     feature_set, sites = visible_set(request.user, set_id)
-    state, error = status_of(feature_set)
+    status = work_status(feature_set)
+    state = status["state"]
     rows = _item_rows(feature_set)
     columns = _columns(feature_set)
     chosen = request.GET.get("column") or _default_column(columns)
     if chosen not in columns or columns[chosen].get("kind") != "feature":
         chosen = _default_column(columns)
-    active = [job for job in jobs_of(feature_set).exclude(kind="features.recording")
-              .order_by("id")]
-    done = sum(1 for r in rows if r["part"] is not None)
     may_download = all(can(request.user, Action.DOWNLOAD, site=s, study=feature_set.study)
                        for s in sites)
     return render(request, "features/detail.html", {
-        **work_status(feature_set),
-        "set": feature_set, "sites": sites, "state": state, "error": error, "rows": rows,
-        "done": done, "total": len(rows), "jobs": active,
+        **status,
+        "set": feature_set, "sites": sites, "rows": rows,
         "kept_total": sum(r["kept"] or 0 for r in rows),
         "left_total": sum(r["excluded"] for r in rows),
         "excluded_total": sum(1 for r in rows if r["part"] and r["part"].excluded_reason),
-        "percent": round(100 * done / len(rows)) if rows else 100,
         "params_text": json.dumps(feature_set.params, indent=2, sort_keys=True),
         "versions": feature_set.versions.select_related("site").order_by("site__slug"),
         "effects": feature_set.site_effects, "column": chosen,

@@ -230,3 +230,13 @@ def state_with_failures(obj, jobs):
     if failed is not None:
         return "failed", failed.error
     return obj.state, obj.error
+
+
+def work_status(*, state, error, done, total, unit, jobs, status_url):
+    """The context of ``jobs/_work_status.html``: an object's state, how far its work is
+    (``done`` of ``total`` ``unit``), its jobs, and the endpoint htmx polls until the state
+    is final."""
+    final = state in ("done", "failed")
+    return {"state": state, "error": error, "done": done, "total": total, "unit": unit,
+            "percent": round(100 * done / total) if total else (100 if final else 0),
+            "final": final, "jobs": jobs, "status_url": status_url}

@@ -56,6 +56,7 @@ def work_status(qc_round):
 
     from portal.jobs.models import Job, JobState
     from portal.jobs.services import jobs_about
+    from portal.jobs.services import work_status as context
 
     done, total = progress(qc_round)
     planning = Job.objects.filter(kind="qc.version", target_type="quality.qcround",
@@ -65,12 +66,9 @@ def work_status(qc_round):
     jobs = [j for j in list(planning) + list(failed) if j.state != JobState.DONE]
     error = next((j.error for j in jobs if j.state == JobState.FAILED), "")
     state = "done" if done >= total else ("failed" if error else "running")
-    return {"state": state, "error": error, "done": done, "total": total,
-            "unit": "recordings checked",
-            "percent": round(100 * done / total) if total else 100,
-            "final": state in ("done", "failed"),
-            "jobs": jobs,
-            "status_url": reverse("quality:round_status", kwargs={"round_id": qc_round.pk})}
+    return context(state=state, error=error, done=done, total=total, unit="recordings checked",
+                   jobs=jobs, status_url=reverse("quality:round_status",
+                                                 kwargs={"round_id": qc_round.pk}))
 
 
 @access("checked")
@@ -99,12 +97,10 @@ def round_detail(request, round_id):
         rows.sort(key=lambda r: -(r["run"].n_bad_channels if r["run"] else -1))
     else:
         rows.sort(key=lambda r: r["recording"].path)
-    done, total = progress(qc_round)
     may_run = can(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
     return render(request, "quality/round.html", {
         **work_status(qc_round),
-        "round": qc_round, "version": version, "rows": rows, "done": done, "total": total,
-        "percent": round(100 * done / total) if total else 100, "sort": sort,
+        "round": qc_round, "version": version, "rows": rows, "sort": sort,
         "rounds": version.qc_rounds.all(), "may_run": may_run,
         "rerun_form": RerunForm(initial_settings=qc_round.settings) if may_run else None,
         "counts": {v: sum(1 for r in rows if r["verdict"] == v) for v in Verdict.values},

@@ -120,12 +120,13 @@ def _model_rows(run):
 
 def work_status(run):
     """What the page's self-updating status part shows of the run's work."""
+    from portal.jobs.services import work_status as context
+
     state, error = status_of(run)
     done, total = progress_of(run)
-    return {"state": state, "error": error, "done": done, "total": total,
-            "unit": "model folds done", "percent": round(100 * done / total) if total else 0,
-            "final": state in ("done", "failed"), "jobs": list(run_jobs(run)),
-            "status_url": reverse("training:status", kwargs={"training_id": run.pk})}
+    return context(state=state, error=error, done=done, total=total, unit="model folds done",
+                   jobs=list(run_jobs(run)),
+                   status_url=reverse("training:status", kwargs={"training_id": run.pk}))
 
 
 @access("checked")
@@ -137,18 +138,15 @@ def run_status(request, training_id):
 @access("checked")
 def run_detail(request, training_id):
     run, sites = visible_run(request.user, training_id)
-    state, error = status_of(run)
-    done, total = progress_of(run)
+    status = work_status(run)
     rows = _model_rows(run)
     best = run.results.get("release_model")
     best_result = run.results.get("models", {}).get(best) if best else None
     lead = is_lead(request.user, run.study)
     releases = list(run.releases.select_related("trained_on_site", "approved_by"))
     return render(request, "training/detail.html", {
-        **work_status(run),
-        "run": run, "sites": sites, "state": state, "error": error, "done": done,
-        "total": total, "percent": round(100 * done / total) if total else 0,
-        "rows": rows, "best": best, "best_result": best_result,
+        **status,
+        "run": run, "sites": sites, "rows": rows, "best": best, "best_result": best_result,
         "labels": run.results.get("labels", []),
         "confusion": list(zip(run.results.get("labels", []),
                               best_result["pooled"]["confusion"], strict=False))
@@ -157,8 +155,7 @@ def run_detail(request, training_id):
         "spec_text": json.dumps(run.spec, indent=2, sort_keys=True),
         "releases": releases, "lead": lead,
         "may_rerun": may_run_on(request.user, run.feature_set, sites),
-        "jobs": [j for j in run_jobs(run)],
-        "rerun_check": _rerun_check(run, state),
+        "rerun_check": _rerun_check(run, status["state"]),
     })
 
 
@@ -233,7 +230,7 @@ def approve_view(request, release_id):
     return redirect("training:detail", training_id=release.run_id)
 
 
-def _site_may_use(user, release, site):
+def site_may_use(user, release, site):
     """A site's people see approved releases whose training data included their site."""
     if release.run.study.sites.filter(pk=site.pk).count() == 0:
         return False
@@ -248,7 +245,7 @@ def site_releases(request, site_slug):
     rows = []
     for release in ModelRelease.objects.filter(run__feature_set__versions__site=site).distinct(
             ).select_related("run__study", "run__feature_set", "trained_on_site"):
-        if not _site_may_use(request.user, release, site):
+        if not site_may_use(request.user, release, site):
             continue
         if release.trained_on_site and release.trained_on_site != site:
             continue
@@ -263,7 +260,7 @@ def release_file(request, release_id, part, site_slug):
     release = get_object_or_404(ModelRelease.objects.select_related("run__study",
                                                                     "run__feature_set"),
                                 pk=release_id)
-    if part not in RELEASE_PARTS or not _site_may_use(request.user, release, site):
+    if part not in RELEASE_PARTS or not site_may_use(request.user, release, site):
         raise Http404("no such release file")
     require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
     filename, content_type, field = RELEASE_PARTS[part]

@@ -22,10 +22,10 @@ PINNED = {
     "home": 4,
     "study overview": 23,
     "site page": 14,
-    "quality round": 15,
+    "quality round": 13,
     "recording quality": 11,
-    "feature set": 32,
-    "training run": 25,
+    "feature set": 31,
+    "training run": 23,
     "site releases": 9,
     "audit trail": 6,
 }
