@@ -20,7 +20,11 @@ def subject_object(subject):
     kind, _, ident = subject.partition(":")
     if kind not in SUBJECTS or not ident.isdigit():
         raise ValueError(f"{subject!r}: give KIND:ID with KIND one of {', '.join(SUBJECTS)}")
-    return kind, apps.get_model(SUBJECTS[kind]).objects.get(pk=int(ident))
+    obj = apps.get_model(SUBJECTS[kind]).objects.filter(pk=int(ident)).first()
+    if obj is None:
+        raise ValueError(f"{subject!r}: no such object; the ids are on the feature set and "
+                         "quality pages")
+    return kind, obj
 
 
 def original_sha256(kind, obj):

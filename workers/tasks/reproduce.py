@@ -16,7 +16,7 @@ from portal.audit.events import canonical_sha256, record
 from portal.audit.models import Reproduction
 
 
-def _features(reproduction, feature_set, ctx):
+def _features(feature_set, ctx):
     from workers.features.pipeline import frame_to_parquet, read_parquet
     from workers.tasks.features import build_table, compute_part
 
@@ -39,7 +39,7 @@ def _features(reproduction, feature_set, ctx):
                  "n_different": len(different), "rows": len(table)}
 
 
-def _quality(reproduction, run, ctx):
+def _quality(run, ctx):
     from portal.datasets.models import Recording
     from workers.tasks.quality import compute_qc
 
@@ -64,9 +64,9 @@ def run_reproduce(ctx):
     kind, obj = subject_object(reproduction.subject)
     try:
         if kind == "features":
-            new, details = _features(reproduction, obj, ctx)
+            new, details = _features(obj, ctx)
         else:
-            new, details = _quality(reproduction, obj, ctx)
+            new, details = _quality(obj, ctx)
     except Exception as exc:
         Reproduction.objects.filter(pk=reproduction.pk).update(
             error=f"{type(exc).__name__}: {exc}"[:2000], finished_at=timezone.now())

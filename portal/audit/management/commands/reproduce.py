@@ -22,12 +22,8 @@ class Command(BaseCommand):
         try:
             kind, obj = reproduce.subject_object(subject)
             item = reproduce.start(kind, obj, user=None)
-        except (ValueError, LookupError) as exc:
-            raise CommandError(f"{subject}: {exc}") from None
-        except Exception as exc:  # DoesNotExist of either model
-            if type(exc).__name__ == "DoesNotExist":
-                raise CommandError(f"{subject}: no such object") from None
-            raise
+        except ValueError as exc:
+            raise CommandError(str(exc)) from None
         if wait:
             def status():
                 item.refresh_from_db()
