@@ -159,10 +159,10 @@ def _lineage_object(user, kind, object_id):
     if may_see(user, feature_set, sites):
         return obj, None
     if kind == "release":
-        from portal.training.views import _site_may_use
+        from portal.training.views import site_may_use
 
         mine = [s for s in visible_sites(user).filter(pk__in=[s.pk for s in sites])
-                if _site_may_use(user, obj, s)]
+                if site_may_use(user, obj, s)]
         if mine:
             return obj, {s.pk for s in mine}
     raise Http404("no such object")

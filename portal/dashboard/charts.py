@@ -11,7 +11,9 @@ import hashlib
 import operator
 from collections.abc import Mapping, Sequence
 
-from portal.dashboard.headplot import INK, NOT_CHECKED, OUTLINE, _num, _xml
+from portal.dashboard.headplot import INK, NOT_CHECKED, OUTLINE
+from portal.dashboard.headplot import svg_number as _num
+from portal.dashboard.headplot import xml_text as _xml
 
 # Fixed colours for the names the overview uses (case and surrounding spaces ignored). Each
 # has at least 4:1 contrast on white, and they differ in lightness as well as in hue.

@@ -48,9 +48,9 @@ _NOT_XML = re.compile("[^\t\n\r\x20-\ud7ff\ue000-\ufffd\U00010000-\U0010ffff]")
 def _head_centre():
     """Centre (m) of the least-squares sphere through every template position."""
     # Imported here so that importing this module does not load mne in the web process.
-    from workers.qc.positions import _template, fit_sphere
+    from workers.qc.positions import fit_sphere, template_positions
 
-    points = np.array(list(_template().values()), dtype=float)
+    points = np.array(list(template_positions().values()), dtype=float)
     centre, _ = fit_sphere(points)
     return centre
 
@@ -117,13 +117,17 @@ def _describe(name, flagged, checked):
     return f"{name}: flagged in {flagged} of {checked} {checks} ({_percent(flagged, checked)})"
 
 
-def _xml(text):
+def xml_text(text):
     """Text safe inside XML content and double-quoted attributes."""
     return html.escape(_NOT_XML.sub("\ufffd", text), quote=True)
 
 
-def _num(value):
+def svg_number(value):
+    """A coordinate as SVG text: at most two decimals, no trailing zeros."""
     return f"{value:.2f}".rstrip("0").rstrip(".")
+
+
+_xml, _num = xml_text, svg_number  # short names for the drawing code below
 
 
 # --- input ------------------------------------------------------------------------------

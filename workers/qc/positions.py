@@ -26,6 +26,11 @@ def _template():
     return {key.lower(): np.asarray(value, dtype=float) for key, value in positions.items()}
 
 
+def template_positions():
+    """{lower-case name: template position (m)} of every electrode of the 10-20 template."""
+    return dict(_template())
+
+
 def template_position(ch_name):
     """Template 10-20 position (head frame, m) of an electrode name, or None.
 
