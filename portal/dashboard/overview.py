@@ -102,12 +102,13 @@ def data_signature(study, site_ids):
 
 
 def cached_study_numbers(study, site_ids, *, now):
-    """:func:`study_numbers`, kept per (study, readable sites, data signature, week): the
-    numbers of unchanged data are not computed twice."""
+    """:func:`study_numbers`, kept per (study, readable sites, data signature, week, time
+    zone: weeks start at the reader's midnight): unchanged data is not counted twice."""
     from django.core.cache import cache
+    from django.utils import timezone
 
     key = ("cairn-overview", study.pk, tuple(sorted(site_ids)), data_signature(study, site_ids),
-           now.date().isocalendar()[:2])
+           now.date().isocalendar()[:2], timezone.get_current_timezone_name())
     digest = "cairn-overview-" + hashlib.sha256(repr(key).encode()).hexdigest()
     numbers = cache.get(digest)
     if numbers is None:

@@ -46,22 +46,21 @@ def upload_job(upload):
 
 @access("checked")
 def upload_detail(request, upload_id):
-    upload = visible_upload(request.user, upload_id)
-    version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
-    return render(request, "datasets/upload.html", {
-        "upload": upload, "job": upload_job(upload), "version": version,
-    })
+    return render(request, "datasets/upload.html", _upload_context(request.user, upload_id))
 
 
 @access("checked")
 def upload_status(request, upload_id):
     """The upload's state and validation progress alone (HTML for htmx), polled until the
     upload is accepted or rejected."""
-    upload = visible_upload(request.user, upload_id)
+    return render(request, "datasets/_upload_status.html",
+                  _upload_context(request.user, upload_id))
+
+
+def _upload_context(user, upload_id):
+    upload = visible_upload(user, upload_id)
     version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
-    return render(request, "datasets/_upload_status.html", {
-        "upload": upload, "job": upload_job(upload), "version": version,
-    })
+    return {"upload": upload, "job": upload_job(upload), "version": version}
 
 
 @access("checked")
