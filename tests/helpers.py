@@ -6,12 +6,13 @@ import datetime
 PYEDFLIB_MEAS_DATE = datetime.datetime(2011, 4, 4, 12, 57, 2, tzinfo=datetime.UTC)
 
 
-def member(username, *, role, site_slug=None):
+def member(username, *, role, site_slug=None, study_slug=None):
     """A person with a role, already past their one-time password (as after first log-in)."""
     from portal.accounts.models import AccountFlags
     from portal.accounts.setup import add_member
 
-    user, password = add_member(username, role=role, site_slug=site_slug)
+    user, password = add_member(username, role=role, site_slug=site_slug,
+                                study_slug=study_slug)
     AccountFlags.require_new_password(user, required=False)
     return user, password
 

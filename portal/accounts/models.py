@@ -47,28 +47,32 @@ class Role(models.TextChoices):
     OPERATOR = "operator", "operator"
 
 
-#: Roles whose members see every site of the studies their site takes part in.
+#: Roles whose holders see every site of the study they hold the role in.
 STUDY_WIDE_ROLES = frozenset({Role.STUDY_LEAD, Role.AUDITOR})
 
 
 class Membership(models.Model):
-    """A person's role at a site. A person may hold several roles at several sites."""
+    """A person's role at a site within one study. A site may take part in several studies;
+    a role held for one of them grants nothing in the others."""
 
     user = models.ForeignKey(
         settings.AUTH_USER_MODEL, on_delete=models.CASCADE, related_name="memberships"
     )
     site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="memberships")
+    study = models.ForeignKey(Study, on_delete=models.CASCADE, related_name="memberships")
     role = models.CharField(max_length=20, choices=Role.choices)
     created_at = models.DateTimeField(default=timezone.now)
 
     class Meta:
         constraints = [
-            models.UniqueConstraint(fields=["user", "site", "role"], name="one_role_once_per_site")
+            models.UniqueConstraint(fields=["user", "site", "study", "role"],
+                                    name="one_role_once_per_site_and_study")
         ]
-        ordering = ["site__slug", "user__username"]
+        ordering = ["study__slug", "site__slug", "user__username"]
 
     def __str__(self):
-        return f"{self.user} — {self.get_role_display()} at {self.site.slug}"
+        return (f"{self.user} — {self.get_role_display()} at {self.site.slug} "
+                f"in {self.study.slug}")
 
 
 def hash_token(raw):

@@ -78,20 +78,43 @@ def add_site(slug, *, study_slug, name):
     return site, created
 
 
-def add_member(username, *, role, site_slug=None, email=""):
-    """Give a user a role at a site, creating the user if needed.
+def _membership_study(site, study_slug):
+    """The study a role at ``site`` is for: the one named, or the site's only study."""
+    studies = list(site.studies.order_by("slug"))
+    if study_slug:
+        study = get_study(study_slug)
+        if study not in studies:
+            known = ", ".join(s.slug for s in studies) or "none"
+            raise SetupError(f"site {site.slug} does not take part in study {study_slug!r} "
+                             f"(it takes part in: {known}); add it first with: manage.py "
+                             f"add_site {site.slug} --study {study_slug} --name NAME")
+        return study
+    if len(studies) == 1:
+        return studies[0]
+    if not studies:
+        raise SetupError(f"site {site.slug} takes part in no study yet; add it to one with: "
+                         f"manage.py add_site {site.slug} --study STUDY --name NAME")
+    raise SetupError(f"site {site.slug} takes part in several studies "
+                     f"({', '.join(s.slug for s in studies)}): say which one with --study; a "
+                     "role counts in that study only")
 
-    Returns (user, one-time password or None if the user already existed).
+
+def add_member(username, *, role, site_slug=None, study_slug=None, email=""):
+    """Give a user a role at a site within one study, creating the user if needed.
+
+    ``study_slug`` may be left out when the site takes part in exactly one study. Returns
+    (user, one-time password or None if the user already existed).
     """
     if role not in Role.values:
         raise SetupError(f"unknown role {role!r}; roles: {', '.join(Role.values)}")
     User = get_user_model()
     with transaction.atomic():
-        site = None
+        site = study = None
         if role != Role.OPERATOR or site_slug:
             if not site_slug:
                 raise SetupError(f"role {role} needs --site SLUG")
             site = get_site(site_slug)
+            study = _membership_study(site, study_slug)
         user = User.objects.filter(username=username).first()
         password = None
         if user is None:
@@ -105,9 +128,12 @@ def add_member(username, *, role, site_slug=None, email=""):
             record("membership.changed", target=user, summary=f"{username} is now an operator",
                    params={"role": role})
         if site is not None:
-            _, created = Membership.objects.get_or_create(user=user, site=site, role=role)
+            _, created = Membership.objects.get_or_create(user=user, site=site, study=study,
+                                                          role=role)
             if created:
-                record("membership.changed", target=user, site=site,
-                       summary=f"{username} is {Role(role).label} at {site.slug}",
-                       params={"role": role, "site": site.slug, "change": "added"})
+                record("membership.changed", target=user, site=site, study=study,
+                       summary=f"{username} is {Role(role).label} at {site.slug} in "
+                               f"{study.slug}",
+                       params={"role": role, "site": site.slug, "study": study.slug,
+                               "change": "added"})
     return user, password

@@ -13,6 +13,9 @@ from dataclasses import dataclass, field
 from django.urls import reverse
 
 from portal.accounts.permissions import Action, can
+from portal.features.access import may_see, set_sites
+from portal.quality.access import qc_run_visible
+from portal.training.access import release_sites
 
 ROOT_KINDS = ("upload", "version", "recording", "qc", "features", "training")
 
@@ -39,17 +42,14 @@ class Walk:
     # --- who may open what -------------------------------------------------------------
     def set_sites(self, feature_set):
         if feature_set.pk not in self._sites:
-            from portal.features.views import set_sites
-
             self._sites[feature_set.pk] = set_sites(feature_set)
         return self._sites[feature_set.pk]
 
-    def sees_site(self, site):
-        return can(self.user, Action.VIEW, site=site)
+    def sees(self, owner):
+        """``owner`` is an upload or a dataset version: its (site, study) decides."""
+        return can(self.user, Action.VIEW, site=owner.site_id, study=owner.study_id)
 
     def sees_set(self, feature_set):
-        from portal.features.views import may_see
-
         return may_see(self.user, feature_set, self.set_sites(feature_set))
 
     # --- the walk ------------------------------------------------------------------------
@@ -125,7 +125,7 @@ class Walk:
     # --- what each row says ----------------------------------------------------------------
     def _describe_upload(self, node):
         upload = node.obj
-        node.visible = self.sees_site(upload.site)
+        node.visible = self.sees(upload)
         node.label = f"upload {upload.pk} ({upload.site.slug})"
         node.facts = [f"state {upload.state}", f"archive sha256 {upload.archive_sha256 or '—'}"]
         if node.visible:
@@ -133,7 +133,7 @@ class Walk:
 
     def _describe_version(self, node):
         version = node.obj
-        node.visible = self.sees_site(version.site)
+        node.visible = self.sees(version)
         node.label = f"{version.site.slug} dataset version {version.number}"
         node.facts = [f"manifest sha256 {version.manifest_sha256}"]
         if node.visible:
@@ -141,7 +141,7 @@ class Walk:
 
     def _describe_round(self, node):
         qc_round = node.obj
-        node.visible = self.sees_site(qc_round.version.site)
+        node.visible = self.sees(qc_round.version)
         node.label = f"quality round {qc_round.pk}"
         node.facts = [f"settings {qc_round.settings_digest[:12]}",
                       f"code {qc_round.code_version}"]
@@ -150,13 +150,13 @@ class Walk:
 
     def _describe_recording(self, node):
         recording = node.obj
-        node.visible = self.sees_site(recording.version.site)
+        node.visible = self.sees(recording.version)
         node.label = recording.path if node.visible else "a recording"
         node.facts = [f"sha256 {recording.sha256}"]
 
     def _describe_qc(self, node):
         run = node.obj
-        node.visible = self.sees_site(run.site)
+        node.visible = qc_run_visible(self.user, run)
         node.label = f"quality result {run.pk}: {run.verdict}"
         node.facts = [f"settings {run.settings_digest[:12]}", f"code {run.code_version}"]
 
@@ -182,7 +182,8 @@ class Walk:
 
     def _describe_release(self, node):
         release = node.obj
-        node.visible = self.sees_set(release.run.feature_set)
+        node.visible = self.sees_set(release.run.feature_set) or bool(
+            release_sites(self.user, release))
         node.label = f"model release {release.pk} ({release.model}, {release.kind})"
         node.facts = [f"state {release.state}", f"model sha256 {release.model_sha256}"]
         node.url = reverse("audit:lineage", kwargs={"lineage_kind": "release",

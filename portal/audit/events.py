@@ -36,8 +36,9 @@ def actor_snapshot(user):
     if user is None or not getattr(user, "is_authenticated", False):
         return {}
     roles = [
-        {"site": m.site.slug, "role": m.role}
-        for m in user.memberships.select_related("site").order_by("site__slug", "role")
+        {"site": m.site.slug, "study": m.study.slug, "role": m.role}
+        for m in user.memberships.select_related("site", "study").order_by(
+            "study__slug", "site__slug", "role")
     ]
     return {"username": user.get_username(), "user_id": user.pk,
             "superuser": user.is_superuser, "roles": roles}

@@ -17,22 +17,15 @@ from django.utils.dateparse import parse_date
 from django.utils.http import url_has_allowed_host_and_scheme
 from django.views.decorators.http import require_POST
 
-from portal.accounts.models import STUDY_WIDE_ROLES
-from portal.accounts.permissions import access, is_operator, visible_sites
+from portal.accounts.permissions import access
+from portal.audit import reproduce
+from portal.audit.access import lineage_object, reproduction_subject_visible, visible_events
 from portal.audit.models import ChainLink, Event
+from portal.features.models import FeatureSet
+from portal.quality.models import QCRun
 
 PAGE = 50
 FILTERS = ("verb", "site", "actor", "object", "from", "to")
-
-
-def visible_events(user):
-    if is_operator(user):
-        return Event.objects.all()
-    sites = visible_sites(user)
-    wide = user.memberships.filter(role__in=STUDY_WIDE_ROLES).values("site__studies")
-    return Event.objects.filter(
-        Q(site__in=sites) | Q(site__isnull=True, study__in=wide) | Q(actor=user)
-    )
 
 
 def filtered(request):
@@ -137,37 +130,6 @@ def chain_state():
 PARAMETER_KEYS = ("cairn:params", "cairn:spec", "cairn:settings")
 
 
-def _lineage_object(user, kind, object_id):
-    """(object, site ids shown in full or None for all) if the user may see its lineage;
-    404 otherwise. A study-wide reader sees everything a feature set was made from; a
-    site's people see a release made available to their site, other sites summarised."""
-    from portal.accounts.permissions import Action, can
-    from portal.audit.lineage import resolve
-    from portal.features.views import may_see, set_sites
-
-    try:
-        obj = resolve(f"{kind}:{object_id}")
-    except ValueError:
-        raise Http404("no such object") from None
-    if kind == "version":
-        if can(user, Action.VIEW, site=obj.site):
-            return obj, None
-        raise Http404("no such object")
-    feature_set = obj if kind == "features" else (
-        obj.feature_set if kind == "training" else obj.run.feature_set)
-    sites = set_sites(feature_set)
-    if may_see(user, feature_set, sites):
-        return obj, None
-    if kind == "release":
-        from portal.training.views import site_may_use
-
-        mine = [s for s in visible_sites(user).filter(pk__in=[s.pk for s in sites])
-                if site_may_use(user, obj, s)]
-        if mine:
-            return obj, {s.pk for s in mine}
-    raise Http404("no such object")
-
-
 def lineage_rows(doc):
     rows = []
     for record in doc.get_records():
@@ -193,7 +155,7 @@ def lineage_page(request, lineage_kind, object_id):
     from portal.audit.lineage import build
 
     kind = lineage_kind
-    obj, full_sites = _lineage_object(request.user, kind, object_id)
+    obj, full_sites = lineage_object(request.user, kind, object_id)
     rows = lineage_rows(build(obj, full_sites).doc)
     return render(request, "audit/lineage.html", {
         "obj": obj, "kind": kind, "rows": rows, "object_id": object_id,
@@ -207,7 +169,7 @@ def lineage_prov(request, lineage_kind, object_id):
     from portal.audit.lineage import provenance_json
 
     kind = lineage_kind
-    obj, full_sites = _lineage_object(request.user, kind, object_id)
+    obj, full_sites = lineage_object(request.user, kind, object_id)
     response = HttpResponse(provenance_json(obj, full_sites), content_type="application/json")
     response["Content-Disposition"] = f'attachment; filename="{kind}-{object_id}.prov.json"'
     return response
@@ -218,27 +180,17 @@ def lineage_prov(request, lineage_kind, object_id):
 def reproduce_view(request, subject_kind, object_id):
     """Ask for a feature set (``features``) or quality result (``qc``) to be computed again
     from its record; back to the page the form was on."""
-    from portal.accounts.permissions import Action, can, get_visible_site
-    from portal.audit import reproduce
-
     if subject_kind == "features":
-        from portal.features.views import visible_set
-        from portal.training.views import may_run_on
-
-        obj, sites = visible_set(request.user, object_id)
-        allowed = may_run_on(request.user, obj, sites)
-        back = reverse("features:detail", kwargs={"set_id": obj.pk})
+        obj = FeatureSet.objects.filter(pk=object_id).first()
+        back = reverse("features:detail", kwargs={"set_id": object_id})
     elif subject_kind == "qc":
-        from portal.quality.models import QCRun
-
         obj = QCRun.objects.select_related("site").filter(pk=object_id).first()
-        if obj is None:
-            raise Http404("no such quality result")
-        get_visible_site(request.user, obj.site.slug)
-        allowed = can(request.user, Action.RUN_JOBS, site=obj.site)
         back = reverse("dashboard:site", kwargs={"site_slug": obj.site.slug})
     else:
         raise Http404("nothing of that kind can be computed again")
+    if obj is None or not reproduction_subject_visible(request.user, subject_kind, obj):
+        raise Http404("no such object")
+    allowed = reproduction_subject_visible(request.user, subject_kind, obj, to_start=True)
     if not allowed:
         raise PermissionDenied("you may not start work on this object")
     following = request.POST.get("next", "")

@@ -534,17 +534,17 @@ class _Builder:
                  date_joined=self.ago(70)) for name in names])
         by_name = {u.username: u for u in users}
         lead = by_name[f"{self.slug}-lead"]
-        memberships = [Membership(user=lead, site=self.sites[0], role=Role.STUDY_LEAD,
-                                  created_at=self.ago(70))]
+        memberships = [Membership(user=lead, site=self.sites[0], study=self.study,
+                                  role=Role.STUDY_LEAD, created_at=self.ago(70))]
         self.managers, self.analysts = {}, {}
         for i, site in enumerate(self.sites):
             self.managers[site.slug] = by_name[f"{self.slug}-dm-{i}"]
             self.analysts[site.slug] = by_name[f"{self.slug}-analyst-{i}"]
             memberships += [
-                Membership(user=self.managers[site.slug], site=site, role=Role.DATA_MANAGER,
-                           created_at=self.ago(70)),
-                Membership(user=self.analysts[site.slug], site=site, role=Role.ANALYST,
-                           created_at=self.ago(70))]
+                Membership(user=self.managers[site.slug], site=site, study=self.study,
+                           role=Role.DATA_MANAGER, created_at=self.ago(70)),
+                Membership(user=self.analysts[site.slug], site=site, study=self.study,
+                           role=Role.ANALYST, created_at=self.ago(70))]
         Membership.objects.bulk_create(memberships)
         self.lead = lead
         self.users = {"lead": lead, "data_managers": self.managers, "analysts": self.analysts,

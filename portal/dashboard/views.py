@@ -5,19 +5,19 @@ from django.db.models import Count, Max, Q
 from django.http import JsonResponse
 from django.shortcuts import render
 
-from portal.accounts.models import STUDY_WIDE_ROLES
 from portal.accounts.permissions import (
-    Action,
     access,
-    can,
     get_visible_site,
     get_visible_study,
     is_operator,
-    study_roles,
+    pairs_q,
+    sees_whole_study,
     visible_sites,
     visible_studies,
+    visible_studies_at,
 )
-from portal.datasets.models import Upload, UploadState
+from portal.datasets.access import upload_studies
+from portal.datasets.models import Recording, Upload, UploadState
 from portal.jobs.models import Job
 
 PAGE_SIZE = 25
@@ -40,11 +40,18 @@ def cached_svg(kind, draw, *args, **kwargs):
     return svg
 
 
-def _site_rows(sites, study=None):
-    """Sites with their upload counts (within ``study`` if given), in one query."""
-    in_study = Q(uploads__study=study) if study is not None else Q()
+def _site_rows(sites, user, study=None):
+    """Sites with their participant and upload counts, in one query: within ``study`` if
+    given, else within every study where the user sees the site."""
+    if study is not None:
+        in_study = Q(uploads__study=study)
+        people = Q(participants__recordings__version__study=study)
+    else:
+        in_study = pairs_q(user, site="uploads__site", study="uploads__study")
+        people = pairs_q(user, site="participants__recordings__version__site",
+                         study="participants__recordings__version__study")
     return sites.annotate(
-        n_participants=Count("participants", distinct=True),
+        n_participants=Count("participants", filter=people, distinct=True),
         n_uploads=Count("uploads", filter=in_study, distinct=True),
         n_waiting=Count("uploads", filter=in_study & Q(uploads__state__in=[
             UploadState.QUEUED, UploadState.VALIDATING]), distinct=True),
@@ -59,7 +66,7 @@ def home(request):
     studies = visible_studies(request.user).order_by("slug")
     sites = visible_sites(request.user)
     return render(request, "dashboard/home.html", {
-        "studies": studies, "sites": _site_rows(sites),
+        "studies": studies, "sites": _site_rows(sites, request.user),
     })
 
 
@@ -140,7 +147,7 @@ def study_overview(request, study_slug):
     from portal.dashboard.overview import cached_study_numbers
 
     study = get_visible_study(request.user, study_slug)
-    sites = list(_site_rows(visible_sites(request.user).filter(studies=study), study))
+    sites = list(_site_rows(visible_sites(request.user, study), request.user, study))
     visible_ids = {s.pk for s in sites}
     numbers = cached_study_numbers(study, visible_ids, now=timezone.now())
     rows = []
@@ -157,7 +164,7 @@ def study_overview(request, study_slug):
             if n["channels_flagged"] else "",
         })
     rows, sort = sort_rows(rows, request.GET.get("sort"), SITE_SORTS, "site")
-    whole = is_operator(request.user) or bool(study_roles(request.user, study) & STUDY_WIDE_ROLES)
+    whole = sees_whole_study(request.user, study)
     weeks = sorted({w for series in numbers["upload_weeks"].values() for w in series}
                    | {w for series in numbers["verdict_weeks"].values() for w in series})
     feature_set = _latest_feature_set(study, visible_ids)
@@ -201,12 +208,13 @@ def site_page(request, site_slug):
     from portal.training.models import ModelRelease, ReleaseState
 
     site = get_visible_site(request.user, site_slug)
+    studies = list(visible_studies_at(request.user, site).values_list("pk", flat=True))
     uploads, upload_sort = order_by_param(
-        Upload.objects.filter(site=site).select_related("study"),
+        Upload.objects.filter(site=site, study__in=studies).select_related("study"),
         request.GET.get("sort"), UPLOAD_SORTS, "-received")
     uploads = Paginator(uploads, PAGE_SIZE).get_page(request.GET.get("page"))
     _uploads_with_jobs(uploads.object_list)
-    versions = list(site.versions.select_related("study").annotate(
+    versions = list(site.versions.filter(study__in=studies).select_related("study").annotate(
         n_recordings=Count("recordings")).order_by("-created_at", "-id")[:20])
     latest = {}
     for version in versions:
@@ -222,18 +230,20 @@ def site_page(request, site_slug):
                 REVIEW_SORTS, "verdict")
             review_rows = Paginator(queryset, PAGE_SIZE).get_page(
                 request.GET.get("review_page"))
-    overrides = Paginator(ChannelOverride.objects.filter(site=site).select_related(
+    seen_files = Recording.objects.filter(version__site=site, version__study__in=studies)
+    overrides = Paginator(ChannelOverride.objects.filter(
+        site=site, recording_sha256__in=seen_files.values("sha256")).select_related(
         "created_by"), PAGE_SIZE).get_page(request.GET.get("override_page"))
     from portal.features.models import FeatureSet
 
     releases = list(ModelRelease.objects.filter(
         run__feature_set__in=FeatureSet.objects.filter(versions__site=site).values("pk"),
-        run__study__in=site.studies.values("pk"), state=ReleaseState.APPROVED).filter(
+        run__study__in=studies, state=ReleaseState.APPROVED).filter(
         Q(trained_on_site__isnull=True) | Q(trained_on_site=site))
         .order_by("-created_at", "-id")[:10])
     return render(request, "dashboard/site.html", {
         "site": site, "uploads": uploads, "upload_sort": upload_sort,
-        "may_upload": can(request.user, Action.UPLOAD, site=site),
+        "may_upload": upload_studies(request.user, site).exists(),
         "versions": versions, "review": review_rows, "review_sort": review_sort,
         "review_round": review_round, "overrides": overrides, "releases": releases,
     })
@@ -246,9 +256,11 @@ def api_me(request):
         "username": request.user.get_username(),
         "operator": is_operator(request.user),
         "roles": [
-            {"site": m.site.slug, "role": m.role}
-            for m in request.user.memberships.select_related("site")
+            {"site": m.site.slug, "study": m.study.slug, "role": m.role}
+            for m in request.user.memberships.select_related("site", "study")
         ],
+        "sees_whole_study": sorted(s.slug for s in visible_studies(request.user)
+                                   if sees_whole_study(request.user, s)),
         "visible_sites": list(sites.values_list("slug", flat=True)),
         "visible_studies": list(visible_studies(request.user).values_list("slug", flat=True)),
     })

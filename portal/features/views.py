@@ -5,17 +5,16 @@ import json
 from django.contrib import messages
 from django.core.exceptions import PermissionDenied
 from django.http import FileResponse, Http404, HttpResponse, StreamingHttpResponse
-from django.shortcuts import get_object_or_404, redirect, render
+from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
-from portal.accounts.models import Site
 from portal.accounts.permissions import Action, access, can, get_visible_study, require
 from portal.audit import reproduce
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features import plots
+from portal.features.access import may_download, may_run_on, may_see, set_sites, visible_set
 from portal.features.forms import FeatureSetForm
-from portal.features.models import FeatureSet
 from portal.features.services import (
     FeatureRequestError,
     jobs_of,
@@ -27,26 +26,6 @@ from portal.studies.models import current_protocol
 
 DOWNLOAD_KINDS = {"parquet": "application/vnd.apache.parquet", "csv": "text/csv",
                   "json": "application/json"}
-
-
-def set_sites(feature_set):
-    return list(Site.objects.filter(versions__feature_sets=feature_set).distinct()
-                .order_by("slug"))
-
-
-def may_see(user, feature_set, sites=None):
-    sites = set_sites(feature_set) if sites is None else sites
-    return bool(sites) and all(can(user, Action.VIEW, site=s, study=feature_set.study)
-                               for s in sites)
-
-
-def visible_set(user, set_id):
-    feature_set = get_object_or_404(FeatureSet.objects.select_related("study", "created_by"),
-                                    pk=set_id)
-    sites = set_sites(feature_set)
-    if not may_see(user, feature_set, sites):
-        raise Http404("no such feature set")
-    return feature_set, sites
 
 
 def feature_choices():
@@ -175,8 +154,6 @@ def set_detail(request, set_id):
     chosen = request.GET.get("column") or _default_column(columns)
     if chosen not in columns or columns[chosen].get("kind") != "feature":
         chosen = _default_column(columns)
-    may_download = all(can(request.user, Action.DOWNLOAD, site=s, study=feature_set.study)
-                       for s in sites)
     return render(request, "features/detail.html", {
         **status,
         "set": feature_set, "sites": sites, "rows": rows,
@@ -187,11 +164,10 @@ def set_detail(request, set_id):
         "versions": feature_set.versions.select_related("site").order_by("site__slug"),
         "effects": feature_set.site_effects, "column": chosen,
         "feature_columns": [n for n, c in columns.items() if c.get("kind") == "feature"],
-        "may_download": may_download and state == "done",
+        "may_download": may_download(request.user, feature_set, sites) and state == "done",
         **reproduce.page_context("features", feature_set,
-                                 may_start=state == "done" and all(
-                                     can(request.user, Action.RUN_JOBS, site=s,
-                                         study=feature_set.study) for s in sites)),
+                                 may_start=state == "done" and may_run_on(
+                                     request.user, feature_set, sites)),
     })
 
 
@@ -201,8 +177,8 @@ def download(request, set_id, fmt):
     feature_set, sites = visible_set(request.user, set_id)
     if kind not in DOWNLOAD_KINDS or feature_set.state != "done":
         raise Http404("no such download")
-    for site in sites:
-        require(request.user, Action.DOWNLOAD, site=site, study=feature_set.study)
+    if not may_download(request.user, feature_set, sites):
+        raise PermissionDenied("you may not download every site's data in this feature set")
     sha = feature_set.sidecar_sha256 if kind == "json" else feature_set.table_sha256
     name = f"{feature_set.study.slug}-features-{feature_set.pk}"
     record("download", actor=request.user, token=getattr(request, "api_token", None),

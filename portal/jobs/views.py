@@ -1,20 +1,10 @@
 """A job's page and the small progress fragment that pages poll."""
 
-from django.http import Http404, JsonResponse
-from django.shortcuts import get_object_or_404, render
+from django.http import JsonResponse
+from django.shortcuts import render
 
-from portal.accounts.permissions import Action, access, can, is_operator
-from portal.jobs.models import Job
-
-
-def visible_job(user, job_id):
-    job = get_object_or_404(Job.objects.select_related("site", "study"), pk=job_id)
-    if job.site is None:
-        if not is_operator(user) and not (job.study and can(user, Action.VIEW, study=job.study)):
-            raise Http404("no such job")
-    elif not can(user, Action.VIEW, site=job.site):
-        raise Http404("no such job")
-    return job
+from portal.accounts.permissions import access
+from portal.jobs.access import visible_job
 
 
 @access("checked")

@@ -5,13 +5,12 @@ import json
 from django.http import JsonResponse
 from django.views.decorators.http import require_http_methods
 
-from portal.accounts.models import Membership
-from portal.accounts.permissions import WRITE_ROLES, Action, access, is_operator
+from portal.accounts.permissions import access, runs_anywhere
+from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
-from portal.features.views import may_see
+from portal.training.access import visible_run
 from portal.training.management.commands.train import run_report
 from portal.training.services import TrainingRequestError, start_run
-from portal.training.views import may_run_on, visible_run
 
 
 @access("checked")
@@ -48,7 +47,3 @@ def run_status(request, training_id):
     run, _ = visible_run(request.user, training_id)
     return JsonResponse(run_report(run))
 
-
-def runs_anywhere(user):
-    return is_operator(user) or Membership.objects.filter(
-        user=user, role__in=WRITE_ROLES[Action.RUN_JOBS]).exists()

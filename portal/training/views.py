@@ -14,20 +14,19 @@ from django.views.decorators.http import require_POST
 from portal.accounts.permissions import (
     Action,
     access,
-    can,
     get_visible_site,
     get_visible_study,
-    is_operator,
+    is_lead,
     require,
-    study_roles,
 )
 from portal.audit.events import record
 from portal.datasets import blobs
+from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
-from portal.features.views import may_see, set_sites
 from portal.training import plots
+from portal.training.access import release_for_site, site_may_use, visible_run
 from portal.training.forms import TrainingForm
-from portal.training.models import ModelRelease, ReleaseState, TrainingRun
+from portal.training.models import ModelRelease
 from portal.training.services import (
     TrainingRequestError,
     approve,
@@ -40,25 +39,6 @@ from portal.training.services import (
 RELEASE_PARTS = {"model": ("model.skops", "application/octet-stream", "model_sha256"),
                  "card": ("model-card.md", "text/markdown", "card_sha256"),
                  "spec": ("features.json", "application/json", "spec_sha256")}
-
-
-def visible_run(user, run_id):
-    run = get_object_or_404(TrainingRun.objects.select_related("study", "feature_set",
-                                                               "created_by"), pk=run_id)
-    sites = set_sites(run.feature_set)
-    if not may_see(user, run.feature_set, sites):
-        raise Http404("no such training run")
-    return run, sites
-
-
-def may_run_on(user, feature_set, sites=None):
-    sites = set_sites(feature_set) if sites is None else sites
-    return bool(sites) and all(can(user, Action.RUN_JOBS, site=s, study=feature_set.study)
-                               for s in sites)
-
-
-def is_lead(user, study):
-    return is_operator(user) or bool(study_roles(user, study) & {"study_lead"})
 
 
 def _form(user, study, data=None):
@@ -183,7 +163,11 @@ def rerun_view(request, training_id):
     run, sites = visible_run(request.user, training_id)
     if not may_run_on(request.user, run.feature_set, sites):
         raise PermissionDenied("you may not start work on this feature set")
-    again = rerun(run, user=request.user)
+    try:
+        again = rerun(run, user=request.user)
+    except TrainingRequestError as exc:
+        messages.error(request, f"Run {run.pk} cannot be repeated as stored: {exc}")
+        return redirect("training:detail", training_id=run.pk)
     messages.info(request, f"Run {run.pk} is being reproduced from its stored spec.")
     return redirect("training:detail", training_id=again.pk)
 
@@ -230,15 +214,6 @@ def approve_view(request, release_id):
     return redirect("training:detail", training_id=release.run_id)
 
 
-def site_may_use(user, release, site):
-    """A site's people see approved releases whose training data included their site."""
-    if release.run.study.sites.filter(pk=site.pk).count() == 0:
-        return False
-    if release.state != ReleaseState.APPROVED and not is_lead(user, release.run.study):
-        return False
-    return site in set_sites(release.run.feature_set)
-
-
 @access("checked")
 def site_releases(request, site_slug):
     site = get_visible_site(request.user, site_slug)
@@ -246,8 +221,6 @@ def site_releases(request, site_slug):
     for release in ModelRelease.objects.filter(run__feature_set__versions__site=site).distinct(
             ).select_related("run__study", "run__feature_set", "trained_on_site"):
         if not site_may_use(request.user, release, site):
-            continue
-        if release.trained_on_site and release.trained_on_site != site:
             continue
         rows.append({"release": release,
                      "site_scores": release.scores.get("per_site", {}).get(site.slug)})
@@ -257,10 +230,8 @@ def site_releases(request, site_slug):
 @access("checked")
 def release_file(request, release_id, part, site_slug):
     site = get_visible_site(request.user, site_slug)
-    release = get_object_or_404(ModelRelease.objects.select_related("run__study",
-                                                                    "run__feature_set"),
-                                pk=release_id)
-    if part not in RELEASE_PARTS or not site_may_use(request.user, release, site):
+    release = release_for_site(request.user, release_id, site)
+    if part not in RELEASE_PARTS:
         raise Http404("no such release file")
     require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
     filename, content_type, field = RELEASE_PARTS[part]

@@ -45,6 +45,7 @@ def test_event_keeps_actor_snapshot_and_code_version(consortium):
     event = record("test.thing", actor=user, site=consortium["sites"]["a1"])
     assert event.actor_kind == "user"
     assert event.actor_snapshot["username"] == "dm_a1"
-    assert event.actor_snapshot["roles"] == [{"site": "a1", "role": "data_manager"}]
+    assert event.actor_snapshot["roles"] == [{"site": "a1", "study": "study-a",
+                                              "role": "data_manager"}]
     assert set(event.code_version["libraries"]) >= {"mne", "numpy", "scikit-learn", "skops"}
     assert "commit" in event.code_version

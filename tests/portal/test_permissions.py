@@ -4,25 +4,11 @@ The URL patterns are walked from Django's resolver, so a new view that forgets i
 check (or a URL argument this test cannot fill) fails here.
 """
 
-import io
-import json
-
 import pytest
 from django.apps import apps
 from django.urls import URLPattern, URLResolver, get_resolver, reverse
 
-from portal.accounts.models import ApiToken
-from portal.datasets import blobs
-from portal.datasets.models import (
-    DatasetVersion,
-    Participant,
-    Recording,
-    Upload,
-    VersionFile,
-)
-from portal.features.models import FeatureSet
-from portal.jobs.models import Job
-from portal.quality.models import QCRound, QCRun
+from tests.portal import objects
 
 pytestmark = pytest.mark.django_db
 
@@ -45,74 +31,8 @@ def fill(consortium, site_key, study_key):
     site = consortium["sites"][site_key]
     study = site.studies.get(slug=study_key)
     owner = {"a1": "dm_a1", "a2": "dm_a2", "b1": "dm_b1"}[site_key]
-    upload = Upload.objects.create(site=site, study=study, source="test", label=f"{site_key}.zip",
-                                   state="accepted")
-    job = Job.objects.create(kind="upload.validate", site=site, study=study,
-                             target_type="datasets.upload", target_id=str(upload.pk))
-    token, _ = ApiToken.issue(consortium["people"][owner], f"{site_key} server")
-    version = DatasetVersion.objects.create(site=site, study=study, number=1, upload=upload,
-                                            manifest_sha256="0" * 64)
-    sha256, size = blobs.put_stream(io.BytesIO(b"An invented dataset.\n"))
-    item = VersionFile.objects.create(version=version, path="README", sha256=sha256, bytes=size)
-    participant = Participant.objects.create(site=site, label="01")
-    recording = Recording.objects.create(
-        version=version, participant=participant, path="sub-01/eeg/sub-01_task-rest_eeg.edf",
-        sha256="1" * 64, task="rest", sfreq_hz=250.0, n_channels=1, channel_names=["Cz"],
-        duration_s=60.0,
-    )
-    qc_round = QCRound.objects.create(version=version, settings_digest="2" * 64,
-                                      code_version="test", settings={})
-    run = QCRun.objects.create(
-        site=site, recording_sha256=recording.sha256, settings_digest="2" * 64,
-        code_version="test", settings={}, verdict="pass", result={
-            "channels": {"Cz": {"status": "good", "reasons": [], "metrics": {}}},
-            "segments": [], "rejected_share": 0.0, "verdict": "pass", "verdict_reasons": [],
-            "psd": {"freqs_hz": [1.0, 2.0], "unit": "dB re 1 µV²/Hz",
-                    "channels": {"Cz": [10.0, 8.5]}},
-            "positions": {"Cz": [0.0, 0.0, 0.09]},
-        })
-    feature_set = _feature_set(site, study, version)
-    return {"study_slug": study.slug, "site_slug": site.slug, "upload_id": upload.pk,
-            "job_id": job.pk, "token_id": token.pk, "version_id": version.pk,
-            "file_id": item.pk, "round_id": qc_round.pk, "recording_id": recording.pk,
-            "run_id": run.pk, "kind": "spectrum", "set_id": feature_set.pk, "fmt": "csv",
-            "plot": "by-site", "lineage_kind": "features", "object_id": feature_set.pk,
-            "subject_kind": "features",
-            **_training(site, study, feature_set)}
-
-
-def _training(site, study, feature_set):
-    """A finished training run with an approved release, stored as the workers store them."""
-    from portal.training.models import ModelRelease, TrainingRun
-
-    sha, _ = blobs.put_bytes(b"an invented release file\n")
-    run = TrainingRun.objects.create(study=study, feature_set=feature_set, spec={
-        "validation": {"scheme": "grouped_kfold"}, "models": []}, spec_digest="4" * 64,
-        code_version="test", state="done", results={})
-    release = ModelRelease.objects.create(
-        run=run, model="lda", model_sha256=sha, model_digest="5" * 64, card_sha256=sha,
-        spec_sha256=sha, state="approved", scores={"per_fold": {}, "scheme": {}})
-    return {"training_id": run.pk, "release_id": release.pk, "part": "card"}
-
-
-def _feature_set(site, study, version):
-    """A finished feature set of one invented window, stored as the workers store it."""
-    import pandas as pd
-
-    from workers.features.pipeline import frame_to_parquet
-
-    table = pd.DataFrame({"site": [site.slug], "level": ["low"],
-                          "alpha.relative_power.Cz": [0.3]})
-    table_sha, size = blobs.put_bytes(frame_to_parquet(table))
-    sidecar = {"columns": {"site": {"kind": "index"}, "level": {"kind": "label"},
-                           "alpha.relative_power.Cz": {"kind": "feature", "unit": "1"}}}
-    sidecar_sha, _ = blobs.put_bytes(json.dumps(sidecar).encode())
-    feature_set = FeatureSet.objects.create(
-        study=study, key_sha256=f"{site.slug}".ljust(64, "0"), params={}, params_digest="3" * 64,
-        code_version="test", state="done", table_sha256=table_sha, table_bytes=size,
-        sidecar_sha256=sidecar_sha, n_rows=1, n_columns=3)
-    feature_set.versions.set([version])
-    return feature_set
+    return objects.fill(site, study, owner=consortium["people"][owner],
+                        label=site_key)
 
 
 def urls_for(kwargs_source):
@@ -219,4 +139,4 @@ def test_signed_out_visitors_are_sent_to_log_in(client, consortium):
         if pattern.callback.cairn_access == "public":
             continue
         status = client.get(url).status_code
-        assert status in (302, 403), f"{url} ({name}) answered {status} to a signed-out visitor"
+        assert status in (302, 401), f"{url} ({name}) answered {status} to a signed-out visitor"

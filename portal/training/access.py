@@ -1,0 +1,57 @@
+"""Who may see training runs and use model releases.
+
+A run is visible with its feature set (every site of it, in its study). A release is also
+offered to a site whose data it was trained on: people who see that site in the run's study
+may download an approved release for it, and a per-site release only for the site it was
+trained on.
+"""
+
+from django.http import Http404
+from django.shortcuts import get_object_or_404
+
+from portal.accounts.permissions import Action, can, is_lead, visible_sites
+from portal.features.access import may_see, set_sites
+from portal.training.models import ModelRelease, ReleaseState, TrainingRun
+
+
+def visible_run(user, run_id):
+    run = get_object_or_404(TrainingRun.objects.select_related("study", "feature_set",
+                                                               "created_by"), pk=run_id)
+    sites = set_sites(run.feature_set)
+    if not may_see(user, run.feature_set, sites):
+        raise Http404("no such training run")
+    return run, sites
+
+
+def site_may_use(user, release, site, sites=None, action=Action.VIEW):
+    """True if ``user`` may see (or, with DOWNLOAD, fetch) ``release`` for ``site``."""
+    study = release.run.study_id
+    if not can(user, action, site=site, study=study):
+        return False
+    if release.trained_on_site_id is not None and release.trained_on_site_id != site.pk:
+        return False
+    if release.state != ReleaseState.APPROVED and not is_lead(user, study):
+        return False
+    sites = set_sites(release.run.feature_set) if sites is None else sites
+    return site in sites
+
+
+def release_sites(user, release):
+    """The sites for which ``user`` may see ``release`` (maybe none)."""
+    sites = set_sites(release.run.feature_set)
+    candidates = visible_sites(user, release.run.study).filter(pk__in=[s.pk for s in sites])
+    return [s for s in candidates if site_may_use(user, release, s, sites)]
+
+
+def release_for_site(user, release_id, site):
+    release = get_object_or_404(
+        ModelRelease.objects.select_related("run__study", "run__feature_set",
+                                            "trained_on_site"), pk=release_id)
+    if not site_may_use(user, release, site):
+        raise Http404("no such release")
+    return release
+
+
+def run_job_visible(user, target_id):
+    run = TrainingRun.objects.filter(pk=target_id).select_related("feature_set").first()
+    return run is not None and may_see(user, run.feature_set)
