@@ -150,6 +150,16 @@ def test_specs_name_what_is_wrong():
     assert any("gamma.*" in m for m in errors["features"])
 
 
+@pytest.mark.parametrize("field, value", [("label", "level"), ("validation", ["grouped"]),
+                                          ("statistics", 5), ("models", {"learner": "lda"})])
+def test_a_section_of_the_wrong_shape_is_named_not_a_crash(field, value):
+    """A script that sends ``"label": "level"`` gets the field named, not an internal error."""
+    with pytest.raises(SpecError) as caught:
+        TrainingSpec.from_dict({"feature_set": 1, "models": [{"learner": "lda"}],
+                                field: value})
+    assert field in caught.value.errors
+
+
 def test_comparison_grid_expands_with_baselines():
     models = expand_comparison({"strategies": ["bagging", "stacking"],
                                 "learners": ["lda", "knn"], "mixed": [["lda", "knn", "logistic"]],

@@ -86,7 +86,19 @@ class TrainingSpec:
         def add(key, message):
             errors.setdefault(key, []).append(message)
 
-        data = dict(data or {})
+        if not isinstance(data, dict):
+            raise SpecError({"spec": ["send the spec as a JSON object"]})
+        data = dict(data)
+
+        def section(key):
+            value = data.get(key)
+            if value is None:
+                return {}
+            if not isinstance(value, dict):
+                add(key, f"give an object ({{…}}), not {type(value).__name__} {value!r}")
+                return {}
+            return value
+
         known = {"feature_set", "label", "include", "features", "normalisation", "validation",
                  "models", "comparison", "statistics", "seed", "release"}
         for key in sorted(set(data) - known):
@@ -95,14 +107,14 @@ class TrainingSpec:
         if not isinstance(feature_set, int):
             add("feature_set", "give the id of a feature set (a whole number)")
 
-        label = {"kind": "level", "classes": None, "map": None, **(data.get("label") or {})}
+        label = {"kind": "level", "classes": None, "map": None, **section("label")}
         if label["kind"] not in LABEL_KINDS:
             add("label.kind", f"choose one of {', '.join(LABEL_KINDS)}")
         if label["map"] is not None and not isinstance(label["map"], dict):
             add("label.map", 'give an object from value to class, e.g. {"low": "task"}')
 
         include = {"sites": None, "qc_verdicts": list(DEFAULT_QC),
-                   "min_windows_per_recording": 1, **(data.get("include") or {})}
+                   "min_windows_per_recording": 1, **section("include")}
         if include["sites"] is not None and sites is not None:
             unknown = sorted(set(include["sites"]) - set(sites))
             if unknown:
@@ -116,7 +128,7 @@ class TrainingSpec:
             add("include.min_windows_per_recording", "give a whole number ≥ 1")
 
         features = {"include": ["*"], "exclude": [], "bands": None, "channels": None,
-                    **(data.get("features") or {})}
+                    **section("features")}
         if columns is not None:
             chosen = select_columns(columns, features)
             if not chosen:
@@ -135,7 +147,7 @@ class TrainingSpec:
                         add(f"features.{key}", f"{', '.join(missing)} not in the feature set")
 
         normalisation = {"participant": "none", "site_standardise": False,
-                         **(data.get("normalisation") or {})}
+                         **section("normalisation")}
         if normalisation["participant"] not in NORMALISATIONS:
             add("normalisation.participant", f"choose one of {', '.join(NORMALISATIONS)}")
         if normalisation["participant"] == "baseline" and label["kind"] == "condition":
@@ -144,12 +156,16 @@ class TrainingSpec:
                 "or 'none'")
 
         validation = {"scheme": "grouped_kfold", "n_splits": 5, "n_repeats": 1,
-                      "test_share": 0.25, **(data.get("validation") or {})}
+                      "test_share": 0.25, **section("validation")}
         if validation["scheme"] not in SCHEMES:
             add("validation.scheme", f"choose one of {', '.join(SCHEMES)}")
 
         models = []
-        for i, item in enumerate(data.get("models") or []):
+        models = data.get("models") or []
+        if not isinstance(models, list):
+            add("models", "give a list of models")
+            models = []
+        for i, item in enumerate(models):
             try:
                 models.append(model_from_dict(item))
             except ValueError as exc:
@@ -166,7 +182,7 @@ class TrainingSpec:
             add("models", f"two models are named {name!r}; names must be unique")
 
         statistics = {"permutations": 0, "bootstrap": 1000, "paired_test": False,
-                      "paired_splits": 5, "paired_repeats": 5, **(data.get("statistics") or {})}
+                      "paired_splits": 5, "paired_repeats": 5, **section("statistics")}
         for key in ("permutations", "bootstrap", "paired_splits", "paired_repeats"):
             if not isinstance(statistics[key], int) or statistics[key] < 0:
                 add(f"statistics.{key}", "give a whole number ≥ 0")
@@ -174,7 +190,7 @@ class TrainingSpec:
         if not isinstance(seed, int):
             add("seed", "give a whole number")
         release = {"pooled": True, "per_site": False, "model": None,
-                   **(data.get("release") or {})}
+                   **section("release")}
         if release["model"] is not None and release["model"] not in names:
             add("release.model", f"{release['model']!r} is not one of the models")
         if errors:
