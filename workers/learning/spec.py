@@ -161,11 +161,11 @@ class TrainingSpec:
             add("validation.scheme", f"choose one of {', '.join(SCHEMES)}")
 
         models = []
-        models = data.get("models") or []
-        if not isinstance(models, list):
+        listed = data.get("models") or []
+        if not isinstance(listed, list):
             add("models", "give a list of models")
-            models = []
-        for i, item in enumerate(models):
+            listed = []
+        for i, item in enumerate(listed):
             try:
                 models.append(model_from_dict(item))
             except ValueError as exc:
