@@ -23,6 +23,7 @@ from portal.audit.access import lineage_object, reproduction_subject_visible, vi
 from portal.audit.models import ChainLink, Event
 from portal.features.models import FeatureSet
 from portal.quality.models import QCRun
+from portal.spreadsheet import safe_row
 
 PAGE = 50
 FILTERS = ("verb", "site", "actor", "object", "from", "to")
@@ -101,13 +102,13 @@ def export_csv(request):
             buffer.seek(0)
             buffer.truncate()
             link = getattr(event, "link", None)
-            writer.writerow([event.pk, event.at.astimezone(datetime.UTC).isoformat(),
+            writer.writerow(safe_row([event.pk, event.at.astimezone(datetime.UTC).isoformat(),
                              event.verb, event.actor_snapshot.get("username", ""),
                              event.actor_kind, event.site.slug if event.site else "",
                              event.study.slug if event.study else "",
                              f"{event.target_type}:{event.target_id}" if event.target_type
                              else "", event.summary, link.seq if link else "",
-                             link.hash if link else ""])
+                             link.hash if link else ""]))
             yield buffer.getvalue()
 
     response = StreamingHttpResponse(lines(), content_type="text/csv")

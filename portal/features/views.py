@@ -22,6 +22,7 @@ from portal.features.services import (
     request_feature_set,
     status_of,
 )
+from portal.spreadsheet import safe_frame
 from portal.studies.models import current_protocol
 
 DOWNLOAD_KINDS = {"parquet": "application/vnd.apache.parquet", "csv": "text/csv",
@@ -198,14 +199,15 @@ def download(request, set_id, fmt):
 
 
 def csv_stream(table_sha256, batch_rows=2000):
-    """The table as CSV, converted batch by batch (never the whole table as text)."""
+    """The table as CSV, converted batch by batch (never the whole table as text); text cells
+    a spreadsheet would run as formulas are made inert."""
     import pyarrow.parquet as pq
 
     with blobs.open_blob(table_sha256) as fh:
         source = pq.ParquetFile(fh)
         header = True
         for batch in source.iter_batches(batch_size=batch_rows):
-            frame = batch.to_pandas()
+            frame = safe_frame(batch.to_pandas())
             yield frame.to_csv(index=False, header=header, float_format="%.9g",
                                lineterminator="\n")
             header = False

@@ -7,12 +7,15 @@ from pathlib import Path, PurePosixPath
 
 from portal.datasets import blobs
 from portal.quality.services import effective_channels, latest_overrides, runs_of
+from portal.spreadsheet import safe_cell
 
 DATA_COMPANIONS = {".vhdr": (".vmrk", ".eeg"), ".set": (".fdt",)}
 
 
 def _write_channels(source, target, channels):
-    """Copy channels.tsv with the effective status and its reason in words."""
+    """Copy channels.tsv with the effective status and its reason in words. Text cells a
+    spreadsheet would run as formulas are made inert, except channel names, which must match
+    the recording's (upload validation refuses names that look like formulas)."""
     with open(source, newline="", encoding="utf-8") as fh:
         reader = csv.DictReader(fh, delimiter="\t")
         fields = list(reader.fieldnames or [])
@@ -31,7 +34,8 @@ def _write_channels(source, target, channels):
     with open(target, "w", newline="", encoding="utf-8") as fh:
         writer = csv.DictWriter(fh, fieldnames=fields, delimiter="\t", lineterminator="\n")
         writer.writeheader()
-        writer.writerows(rows)
+        writer.writerows({k: v if k == "name" else safe_cell(v) for k, v in row.items()}
+                         for row in rows)
 
 
 def write_derivative(qc_round, root):
