@@ -9,8 +9,7 @@ from portal.accounts.permissions import access, runs_anywhere
 from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
 from portal.training.access import visible_run
-from portal.training.management.commands.train import run_report
-from portal.training.services import TrainingRequestError, start_run
+from portal.training.services import TrainingRequestError, run_report, start_run
 
 
 @access("checked")

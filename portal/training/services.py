@@ -105,3 +105,25 @@ def status_of(run):
 def progress_of(run):
     done = run.folds.count()
     return done, run.n_expected
+
+
+def run_report(run):
+    """The run as one JSON-ready object: per model its fold scores, pooled scores with spread,
+    and the id of its release (if any)."""
+    state, error = status_of(run)
+    releases = {r.model: r.pk for r in run.releases.all()}
+    models = {}
+    for name, r in (run.results.get("models") or {}).items():
+        models[name] = {
+            "folds": [{"fold": f["fold"], "repeat": f["repeat"],
+                       "balanced_accuracy": f["balanced_accuracy"], "accuracy": f["accuracy"],
+                       "macro_f1": f["macro_f1"], "kappa": f["kappa"]}
+                      for f in r["fold_scores"]],
+            "per_fold": r["per_fold"],
+            "pooled": {k: r["pooled"][k] for k in ("accuracy", "balanced_accuracy",
+                                                   "macro_f1", "kappa")},
+            "ci": r["ci"], "chance": r["chance"], "release": releases.get(name),
+        }
+    return {"run": run.pk, "state": state, "error": error or None,
+            "warning": run.warning or None, "models": models,
+            "statistics": run.results.get("statistics")}

@@ -20,6 +20,7 @@ from portal.training.services import (
     TRAINING_CODE_VERSION,
     TrainingRequestError,
     rerun,
+    run_report,
     start_run,
 )
 from tests.helpers import member, run_all_pending
@@ -253,9 +254,7 @@ def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
     started = json.loads(buffer.getvalue())
     assert started["state"] == "running" and started["models"] == {}
     run_all_pending(TRAINING_JOBS)
-    report = __import__("portal.training.management.commands.train",
-                        fromlist=["run_report"]).run_report(
-        TrainingRun.objects.get(pk=started["run"]))
+    report = run_report(TrainingRun.objects.get(pk=started["run"]))
     assert report["state"] == "done"
     lda = report["models"]["lda"]
     assert len(lda["folds"]) == 3 and lda["per_fold"]["balanced_accuracy"]["sd"] is not None
