@@ -106,13 +106,13 @@ def test_api_token_is_stored_hashed_and_authenticates(client, consortium):
     assert response.status_code == 200
     assert response.json()["visible_sites"] == ["a1"]
     assert client.get(reverse("api:me"), HTTP_AUTHORIZATION="Bearer cairn_nope_x").status_code \
-        == 403
+        == 401
     token.refresh_from_db()
     assert token.last_used_at is not None
     client.force_login(user)
     client.post(reverse("accounts:revoke_token", args=[token.pk]))
     client.logout()
-    assert client.get(reverse("api:me"), HTTP_AUTHORIZATION=f"Bearer {raw}").status_code == 403
+    assert client.get(reverse("api:me"), HTTP_AUTHORIZATION=f"Bearer {raw}").status_code == 401
 
 
 def test_one_time_password_must_be_replaced_before_anything_else(client):
