@@ -190,6 +190,16 @@ LOGIN_FAILURE_WINDOW_S = env_float("CAIRN_LOGIN_FAILURE_WINDOW_S", 15 * 60)
 LOGIN_MAX_FAILURES_PER_ACCOUNT = int(env_float("CAIRN_LOGIN_MAX_FAILURES_PER_ACCOUNT", 5))
 LOGIN_MAX_FAILURES_PER_ADDRESS = int(env_float("CAIRN_LOGIN_MAX_FAILURES_PER_ADDRESS", 20))
 
+# --- The client's address behind proxies (portal.accounts.throttle.client_address) ---------
+# How many proxies in front of the portal append to X-Forwarded-For. 0: the header is ignored
+# and REMOTE_ADDR is the client; N: the N-th address from the right of the header is.
+_trusted_proxies = os.environ.get("CAIRN_TRUSTED_PROXIES", "").strip() or "0"
+if not _trusted_proxies.isdigit():
+    raise ImproperlyConfigured("CAIRN_TRUSTED_PROXIES must be a whole number of proxies (0 or "
+                               f"more), got {_trusted_proxies!r}")
+TRUSTED_PROXIES = int(_trusted_proxies)
+# --- end of the client's address block ------------------------------------------------------
+
 # Celery: Redis in deployment, kombu's filesystem transport under var/ when unset.
 CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")
 if CELERY_BROKER_URL:

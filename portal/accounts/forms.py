@@ -21,9 +21,7 @@ class ThrottledLoginForm(AuthenticationForm):
 
         username = self.cleaned_data.get("username") or ""
         address = throttle.client_address(self.request)
-        if throttle.is_throttled(username, address):
-            record("login.refused", summary=f"log-in for {username!r} refused: too many failures",
-                   params={"username": username, "address": address})
+        if throttle.refuse_if_throttled(username, address):
             raise forms.ValidationError(
                 self.error_messages["throttled"], code="throttled",
                 params={"minutes": max(1, round(settings.LOGIN_FAILURE_WINDOW_S / 60))},

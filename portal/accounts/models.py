@@ -135,6 +135,22 @@ class LoginFailure(models.Model):
         ordering = ["-at"]
 
 
+class LoginRefusal(models.Model):
+    """Refused log-ins of one throttled account or address in one window: the first makes an
+    audit event, the others only count here."""
+
+    key = models.CharField(max_length=200, help_text="account:<name> or address:<IP>")
+    window_start = models.DateTimeField()
+    count = models.PositiveIntegerField(default=1)
+    last_at = models.DateTimeField(default=timezone.now)
+
+    class Meta:
+        ordering = ["-window_start", "key"]
+        constraints = [
+            models.UniqueConstraint(fields=["key", "window_start"], name="one_count_per_window")
+        ]
+
+
 class AccountFlags(models.Model):
     """Per-person flags: a person given a one-time password must choose their own first."""
 
