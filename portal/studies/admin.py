@@ -1,12 +1,11 @@
 from django.contrib import admin
 
+from portal.operator_admin import ReadOnlyAdmin
 from portal.studies.models import ProtocolVersion
 
 
 @admin.register(ProtocolVersion)
-class ProtocolVersionAdmin(admin.ModelAdmin):
-    list_display = ("study", "number", "created_by", "created_at", "note")
-    readonly_fields = ("study", "number", "data", "digest", "created_by", "created_at", "note")
+class ProtocolVersionAdmin(ReadOnlyAdmin):
+    """A protocol changes on the study's page, which records the new version."""
 
-    def has_add_permission(self, request):
-        return False
+    list_display = ("study", "number", "created_by", "created_at", "note")
