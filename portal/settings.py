@@ -225,6 +225,16 @@ JOB_RESEND_AFTER_S = env_float("CAIRN_JOB_RESEND_AFTER_S", 120)
 JOB_SWEEP_EVERY_S = env_float("CAIRN_JOB_SWEEP_EVERY_S", 30)
 JOB_MAX_ATTEMPTS = int(env_float("CAIRN_JOB_MAX_ATTEMPTS", 3))
 
+# --- Failure states and leftovers -----------------------------------------------------------
+# A job that meets a database or connection error is retried this many times (with back-off)
+# before it fails; such retries never count as a stopped worker.
+JOB_TRANSIENT_RETRIES = int(env_float("CAIRN_JOB_TRANSIENT_RETRIES", 5))
+# A resumable upload that received no chunk for this long fails and its staged bytes go.
+UPLOAD_ABANDONED_AFTER_S = env_float("CAIRN_UPLOAD_ABANDONED_AFTER_S", 2 * 86400)
+# Bytes one site may hold in uploads still receiving, waiting or being validated.
+SITE_STAGING_QUOTA_BYTES = int(env_float("CAIRN_SITE_STAGING_QUOTA_BYTES", 100 * 1024**3))
+# --- end of failure states and leftovers ----------------------------------------------------
+
 # The audit chain: how often its head is anchored outside the database, and verified.
 AUDIT_ANCHOR_EVERY_S = env_float("CAIRN_AUDIT_ANCHOR_EVERY_S", 3600)
 AUDIT_VERIFY_EVERY_S = env_float("CAIRN_AUDIT_VERIFY_EVERY_S", 86400)

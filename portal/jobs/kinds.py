@@ -4,15 +4,27 @@ The web process reads this table without importing any handler, so it never load
 scientific libraries; a worker imports a handler only when it runs a job of that kind.
 """
 
+import importlib
 from dataclasses import dataclass
 
 
 @dataclass(frozen=True)
 class JobKind:
+    """``on_failure`` (optional, "module:function") is called as ``f(job, cause)`` inside the
+    transaction that marks a job of this kind failed, so the object it worked on can end in a
+    failed state too; ``cause`` is one of FAILURE_CAUSES."""
+
     name: str
     label: str
     handler: str  # dotted path "module:function"
     queue: str = "compute"
+    on_failure: str = ""
+
+
+#: Why a job ended failed: a JobError from its handler ("error"), any other exception
+#: ("internal"), its workers stopped too often ("lost"), or the database kept failing
+#: ("transient").
+FAILURE_CAUSES = ("error", "internal", "lost", "transient")
 
 
 KINDS = {
@@ -22,6 +34,7 @@ KINDS = {
         JobKind(
             "upload.validate", "validate and index an upload",
             "workers.tasks.intake:validate_upload", queue="intake",
+            on_failure="portal.datasets.services:validation_failed",
         ),
         JobKind("qc.version", "quality checks of a dataset version",
                 "workers.tasks.quality:run_version", queue="intake"),
@@ -54,3 +67,9 @@ def get_kind(name):
         raise ValueError(
             f"unknown job kind {name!r}; known kinds: {', '.join(sorted(KINDS))}"
         ) from None
+
+
+def resolve(path):
+    """The function a dotted "module:function" path names (imported only when asked for)."""
+    module_name, func_name = path.split(":")
+    return getattr(importlib.import_module(module_name), func_name)

@@ -35,7 +35,12 @@ class Job(models.Model):
     progress_done = models.PositiveIntegerField(default=0)
     progress_total = models.PositiveIntegerField(default=0)
     progress_note = models.CharField(max_length=200, blank=True)
-    attempts = models.PositiveIntegerField(default=0)
+    attempts = models.PositiveIntegerField(
+        default=0, help_text="Claims not given back: this run and runs whose worker stopped.",
+    )
+    transient_failures = models.PositiveIntegerField(
+        default=0, help_text="Runs retried after a database or connection error.",
+    )
     error = models.TextField(blank=True, help_text="What went wrong, in words a person can act on.")
     result = models.JSONField(default=dict, blank=True)
     created_at = models.DateTimeField(default=timezone.now, db_index=True)

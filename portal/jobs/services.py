@@ -17,7 +17,7 @@ from django.db.models import F, Q
 from django.utils import timezone
 
 from portal.audit.events import describe, record
-from portal.jobs.kinds import get_kind
+from portal.jobs.kinds import FAILURE_CAUSES, KINDS, get_kind, resolve
 from portal.jobs.models import Job, JobState
 
 log = logging.getLogger(__name__)
@@ -93,6 +93,24 @@ def claim(job_id, worker_id):
     return None
 
 
+def _ended_failed(job, cause):
+    """Record that ``job`` failed and let its kind's failure hook fail the object it worked on,
+    inside the caller's transaction. A broken hook is logged; it never keeps the job running."""
+    if cause not in FAILURE_CAUSES:
+        raise ValueError(f"unknown failure cause {cause!r}; one of {', '.join(FAILURE_CAUSES)}")
+    record("job.failed", target=job, site=job.site, study=job.study, worker=True,
+           summary=job.error[:300], params={"cause": cause, "attempts": job.attempts,
+                                             "transient_failures": job.transient_failures})
+    kind = KINDS.get(job.kind)
+    if kind is None or not kind.on_failure:
+        return
+    try:
+        with transaction.atomic():
+            resolve(kind.on_failure)(job, cause)
+    except Exception:
+        log.exception("failure hook %s for job %s raised", kind.on_failure, job.pk)
+
+
 def _fail_if_exhausted(job_id, now):
     exhausted = Job.objects.filter(
         Q(state=JobState.QUEUED) | Q(state=JobState.RUNNING, lease_expires_at__lt=now),
@@ -100,10 +118,13 @@ def _fail_if_exhausted(job_id, now):
     )
     message = (
         f"Stopped after {settings.JOB_MAX_ATTEMPTS} attempts: the worker running it stopped "
-        "each time (crash, out of memory or restart). Ask an operator to check the worker logs."
+        "each time (crash, out of memory or restart). Ask an operator to check the worker logs "
+        f"(job {job_id})."
     )
-    if exhausted.update(state=JobState.FAILED, error=message, finished_at=now, claim=""):
-        record("job.failed", target=Job(pk=job_id), summary=message[:300], worker=True)
+    with transaction.atomic():
+        if exhausted.update(state=JobState.FAILED, error=message, finished_at=now, claim="",
+                            lease_expires_at=None):
+            _ended_failed(Job.objects.get(pk=job_id), "lost")
 
 
 def heartbeat(job_id, token):
@@ -152,29 +173,53 @@ def finishing(job_id, token):
         )
 
 
-def fail(job_id, token, message):
-    """Mark the job failed with a message a person can act on."""
+def fail(job_id, token, message, *, cause="error"):
+    """Mark the job failed with a message a person can act on; ``cause`` is one of
+    ``portal.jobs.kinds.FAILURE_CAUSES``."""
     now = timezone.now()
     with transaction.atomic():
         updated = Job.objects.filter(pk=job_id, claim=token, state=JobState.RUNNING).update(
             state=JobState.FAILED, error=message, finished_at=now, lease_expires_at=None, claim=""
         )
         if updated:
-            job = Job.objects.get(pk=job_id)
-            record(
-                "job.failed", target=job, site=job.site, study=job.study, worker=True,
-                summary=message[:300],
-            )
+            _ended_failed(Job.objects.get(pk=job_id), cause)
     return bool(updated)
 
 
-def release(job_id, token):
-    """Give the job back to the queue (e.g. before a retry after a passing database error)."""
-    return bool(
-        Job.objects.filter(pk=job_id, claim=token, state=JobState.RUNNING).update(
-            state=JobState.QUEUED, claim="", lease_expires_at=None
-        )
-    )
+def retry_later(job_id, token, reason):
+    """After a database or connection error: give the job back to the queue without counting
+    the attempt, or fail it once ``JOB_TRANSIENT_RETRIES`` retries were spent.
+
+    Returns "queued", "failed", or "lost" when this worker no longer holds the job.
+    """
+    now = timezone.now()
+    with transaction.atomic():
+        job = Job.objects.select_for_update().filter(
+            pk=job_id, claim=token, state=JobState.RUNNING).first()
+        if job is None:
+            return "lost"
+        if job.transient_failures >= settings.JOB_TRANSIENT_RETRIES:
+            job.transient_failures += 1
+            job.state, job.finished_at, job.lease_expires_at, job.claim = (
+                JobState.FAILED, now, None, "")
+            job.error = (
+                f"Stopped after {job.transient_failures} database or connection errors (the "
+                f"last: {reason}). The worker kept running but could not reach the database "
+                "reliably. Ask an operator to check the database and its connections, then run "
+                f"it again (job {job.pk})."
+            )
+            job.save()
+            _ended_failed(job, "transient")
+            return "failed"
+        job.transient_failures += 1
+        job.attempts = max(0, job.attempts - 1)  # a passing database error is no lost worker
+        job.state, job.claim, job.lease_expires_at, job.sent_at = JobState.QUEUED, "", None, now
+        job.save()
+        record("job.retrying", target=job, site=job.site, study=job.study, worker=True,
+               summary=f"database or connection error; retry {job.transient_failures} of "
+               f"{settings.JOB_TRANSIENT_RETRIES}", params={"reason": reason[:300],
+                                                            "retry": job.transient_failures})
+    return "queued"
 
 
 def sweep(now=None):

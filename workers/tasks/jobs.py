@@ -1,22 +1,25 @@
 """The two Celery tasks: run one Job, and sweep for jobs that need sending again."""
 
 from celery import shared_task
+from django.conf import settings
 
 from portal.jobs import runner, services
 
-MAX_RETRIES = 5
 
-
-@shared_task(
-    name=services.RUN_TASK, bind=True, acks_late=True, reject_on_worker_lost=True,
-    max_retries=MAX_RETRIES,
-)
-def run_job(self, job_id):
+@shared_task(name=services.RUN_TASK, bind=True, acks_late=True, reject_on_worker_lost=True)
+def run_job(self, job_id, resume=None):
+    """Run one job; after a database or connection error, try again with back-off. The Job
+    row counts the retries (``JOB_TRANSIENT_RETRIES``); if Celery's own count runs out first,
+    the sweeper still owns the job."""
     try:
-        return runner.run(job_id)
-    except runner.TRANSIENT_ERRORS as exc:
-        # Back off 2, 4, 8, ... s; after the last retry the sweeper still owns the job.
-        raise self.retry(exc=exc, countdown=2 ** (self.request.retries + 1)) from exc
+        return runner.run(job_id, resume=resume)
+    except runner.RetryLater as exc:
+        raise self.retry(args=[job_id], kwargs={"resume": exc.resume}, exc=exc.cause,
+                         countdown=runner.backoff_s(self.request.retries),
+                         max_retries=settings.JOB_TRANSIENT_RETRIES) from exc
+    except runner.TRANSIENT_ERRORS as exc:  # before the job was claimed (or given back)
+        raise self.retry(exc=exc, countdown=runner.backoff_s(self.request.retries),
+                         max_retries=settings.JOB_TRANSIENT_RETRIES) from exc
 
 
 @shared_task(name="cairn.sweep_jobs", acks_late=True, ignore_result=True)
