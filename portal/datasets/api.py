@@ -5,13 +5,8 @@ import json
 from django.http import JsonResponse
 from django.views.decorators.http import require_http_methods
 
-from portal.accounts.permissions import (
-    Action,
-    access,
-    can,
-    get_visible_site,
-    uploads_anywhere,
-)
+from portal.accounts.permissions import access, get_visible_site, uploads_anywhere
+from portal.datasets.access import may_upload, upload_studies, visible_upload
 from portal.datasets.models import UploadState
 from portal.datasets.services import (
     UploadError,
@@ -20,7 +15,7 @@ from portal.datasets.services import (
     start_chunked,
     write_chunk,
 )
-from portal.datasets.views import upload_job, visible_upload
+from portal.datasets.views import upload_job
 
 
 def _error(exc, status=400):
@@ -40,7 +35,7 @@ def _json_body(request):
 def _own_upload(request, upload_id):
     """The upload if the user may send data for it, else (None, a 403 answer); 404 if unseen."""
     upload = visible_upload(request.user, upload_id)
-    if not can(request.user, Action.UPLOAD, site=upload.site, study=upload.study):
+    if not may_upload(request.user, upload.site, upload.study):
         return None, _error(UploadError("you may not upload for this site"), status=403)
     return upload, None
 
@@ -71,10 +66,16 @@ def create_upload(request):
     try:
         data = _json_body(request)
         site = get_visible_site(request.user, str(data.get("site", "")))
-        study = site.studies.filter(slug=str(data.get("study", ""))).first()
+        slug = str(data.get("study", ""))
+        if not site.studies.filter(slug=slug).exists():
+            raise UploadError(f"site {site.slug} takes part in no study {slug!r}",
+                              field="study")
+        study = upload_studies(request.user, site).filter(slug=slug).first()
         if study is None:
-            raise UploadError(f"site {site.slug} takes part in no study "
-                              f"{data.get('study')!r}", field="study")
+            mine = ", ".join(s.slug for s in upload_studies(request.user, site)) or "none"
+            return _error(UploadError(f"you may not upload {site.slug}'s data to study "
+                                      f"{slug}; the studies you upload to there: {mine}",
+                                      field="study"), status=403)
         upload = start_chunked(
             site=site, study=study, user=request.user, mode=data.get("mode", "snapshot"),
             label=str(data.get("filename", "upload")), expected_bytes=data.get("size"),
