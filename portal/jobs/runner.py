@@ -80,7 +80,6 @@ class Heartbeat(threading.Thread):
         self.token = token
         self.stopped = threading.Event()
         self.lost = threading.Event()
-        self.renewals = 0
 
     def run(self):
         try:
@@ -89,7 +88,6 @@ class Heartbeat(threading.Thread):
                     if not services.heartbeat(self.job_id, self.token):
                         self.lost.set()
                         return
-                    self.renewals += 1
                 except Exception as exc:  # keep trying on a new connection; the lease has slack
                     log.warning("heartbeat for job %s failed: %s", self.job_id, exc)
                     _close_connection()
