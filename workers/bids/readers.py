@@ -9,6 +9,13 @@ import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .limits import (
+    MAX_JSON_BYTES,
+    table_kind,
+    table_limit,
+    too_large_message,
+    too_many_rows_message,
+)
 from .report import Problem
 
 MAX_LINE_PROBLEMS = 20
@@ -57,8 +64,38 @@ def _relative(path, relpath):
     return relpath if relpath is not None else Path(path).name
 
 
-def _read_text(path, target):
-    """File content as text, or None after reporting why it cannot be text."""
+def _size_refused(path, target, *, max_size_bytes, what):
+    """Report a file larger than ``max_size_bytes`` (measured before reading); True if so."""
+    try:
+        size = Path(path).stat().st_size
+    except OSError as exc:
+        target.error(f"could not be opened ({exc.strerror or exc}); upload it again",
+                     code="file.unreadable")
+        return True
+    if size <= max_size_bytes:
+        return False
+    target.error(too_large_message(size, max_size_bytes, what), code="file.too_large")
+    return True
+
+
+def _encoding_error(target, exc, *, line, offset):
+    target.error(f"holds bytes that are not UTF-8 text (byte {offset + exc.start}); save the "
+                 "file with UTF-8 encoding", line=line, code="file.encoding")
+
+
+def _bom(target, text):
+    if text.startswith("\ufeff"):
+        target.warn("starts with a byte-order mark; it was ignored, but save the file as "
+                    "UTF-8 without one", line=1, code="file.bom")
+        return text[1:]
+    return text
+
+
+def _read_text(path, target, *, max_size_bytes):
+    """File content as text, or None after reporting why it cannot be text (or is too
+    large to read)."""
+    if _size_refused(path, target, max_size_bytes=max_size_bytes, what="a JSON sidecar"):
+        return None
     try:
         data = Path(path).read_bytes()
     except OSError as exc:
@@ -68,17 +105,36 @@ def _read_text(path, target):
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
-        line = data.count(b"\n", 0, exc.start) + 1
-        target.error(
-            f"holds bytes that are not UTF-8 text (byte {exc.start}); save the file with "
-            "UTF-8 encoding", line=line, code="file.encoding",
-        )
+        _encoding_error(target, exc, line=data.count(b"\n", 0, exc.start) + 1, offset=0)
         return None
-    if text.startswith("\ufeff"):
-        target.warn("starts with a byte-order mark; it was ignored, but save the file as "
-                    "UTF-8 without one", line=1, code="file.bom")
-        text = text[1:]
-    return text
+    return _bom(target, text)
+
+
+def _read_lines(path, target, *, max_rows, max_size_bytes, kind):
+    """The lines of a table (without line endings), read one by one and stopped after the
+    header and ``max_rows`` rows; None after reporting why they cannot be read."""
+    if _size_refused(path, target, max_size_bytes=max_size_bytes, what=f"{kind} tables"):
+        return None
+    lines, offset = [], 0
+    try:
+        with open(path, "rb") as handle:
+            for number, raw in enumerate(handle, start=1):
+                if number > max_rows + 1:
+                    target.error(too_many_rows_message(max_rows, kind, number), line=number,
+                                 code="file.too_many_rows")
+                    return None
+                try:
+                    line = raw.decode("utf-8")
+                except UnicodeDecodeError as exc:
+                    _encoding_error(target, exc, line=number, offset=offset)
+                    return None
+                offset += len(raw)
+                lines.append(_bom(target, line) if number == 1 else line)
+    except OSError as exc:
+        target.error(f"could not be opened ({exc.strerror or exc}); upload it again",
+                     code="file.unreadable")
+        return None
+    return [line.removesuffix("\n").removesuffix("\r") for line in lines]
 
 
 def split_tsv_line(line):
@@ -119,16 +175,21 @@ def split_tsv_line(line):
             i = k + 1
 
 
-def read_tsv(path, *, relpath=None):
-    """Read a BIDS TSV file into a :class:`Table`; never raises on bad content."""
+def read_tsv(path, *, relpath=None, max_rows=None, max_size_bytes=None):
+    """Read a BIDS TSV file into a :class:`Table`; never raises on bad content.
+
+    ``max_rows`` and ``max_size_bytes`` bound what is read (defaults by the kind of table,
+    from :mod:`workers.bids.limits`): the size is checked before reading and reading stops
+    after ``max_rows`` rows; a table past either limit is reported and left unreadable.
+    """
     table = Table(_relative(path, relpath))
-    text = _read_text(path, table)
-    if text is None:
+    limit = table_limit(table.path)
+    lines = _read_lines(path, table, kind=table_kind(table.path),
+                        max_rows=limit.max_rows if max_rows is None else max_rows,
+                        max_size_bytes=(limit.max_size_bytes if max_size_bytes is None
+                                        else max_size_bytes))
+    if lines is None:
         return table
-    lines = text.split("\n")
-    if lines and lines[-1] == "":
-        lines.pop()
-    lines = [line[:-1] if line.endswith("\r") else line for line in lines]
     if not lines or not lines[0].strip():
         table.error("is empty; a table needs a header line with its column names",
                     line=1, code="tsv.empty")
@@ -216,10 +277,11 @@ def _reject_constant(name):
     raise ValueError(f"{name} is not allowed in JSON")
 
 
-def read_json(path, *, relpath=None):
-    """Read a JSON sidecar that must hold one object; never raises on bad content."""
+def read_json(path, *, relpath=None, max_size_bytes=MAX_JSON_BYTES):
+    """Read a JSON sidecar that must hold one object; never raises on bad content. A file
+    larger than ``max_size_bytes`` is reported without being read."""
     document = JsonDocument(_relative(path, relpath))
-    text = _read_text(path, document)
+    text = _read_text(path, document, max_size_bytes=max_size_bytes)
     if text is None:
         return document
     if not text.strip():

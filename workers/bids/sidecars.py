@@ -10,6 +10,7 @@ because nothing says which one wins.
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .limits import table_limit
 from .names import NameCheck, check_path, walk_dataset
 from .readers import read_json, read_tsv
 
@@ -29,11 +30,13 @@ class Tree:
     """The accepted files of a dataset, indexed by folder, with cached reads.
 
     Each JSON or TSV file is read once however many data files it applies to, and its
-    reading problems are handed out once (``take_problems``).
+    reading problems are handed out once (``take_problems``). ``table_limits`` maps kinds of
+    table (channels, events, ...) to other :class:`~workers.bids.limits.TableLimit` values.
     """
 
-    def __init__(self, root, checks):
+    def __init__(self, root, checks, *, table_limits=None):
         self.root = Path(root)
+        self.table_limits = table_limits
         self.checks = {check.path: check for check in checks}
         self.by_folder = {}
         for check in checks:
@@ -45,9 +48,10 @@ class Tree:
         self._clashes = set()
 
     @classmethod
-    def from_root(cls, root):
+    def from_root(cls, root, *, table_limits=None):
         """Index a dataset folder by walking it and checking every name."""
-        return cls(root, [check_path(path) for path in walk_dataset(root).files])
+        return cls(root, [check_path(path) for path in walk_dataset(root).files],
+                   table_limits=table_limits)
 
     def exists(self, path):
         return path in self.checks
@@ -59,7 +63,10 @@ class Tree:
 
     def table(self, path):
         if path not in self._tables:
-            self._tables[path] = read_tsv(self.root / path, relpath=path)
+            limit = table_limit(path, self.table_limits)
+            self._tables[path] = read_tsv(self.root / path, relpath=path,
+                                          max_rows=limit.max_rows,
+                                          max_size_bytes=limit.max_size_bytes)
         return self._tables[path]
 
     def take_problems(self, report, document):
