@@ -51,6 +51,9 @@ def add_study(slug, *, name):
     with transaction.atomic():
         study, created = Study.objects.get_or_create(slug=slug, defaults={"name": name})
         if not created and study.name != name:
+            record("study.renamed", target=study, study=study,
+                   summary=f"study {slug} renamed to {name!r}",
+                   params={"from": study.name, "to": name})
             study.name = name
             study.save(update_fields=["name"])
         if created:
@@ -67,6 +70,9 @@ def add_site(slug, *, study_slug, name):
         study = get_study(study_slug)
         site, created = Site.objects.get_or_create(slug=slug, defaults={"name": name})
         if not created and site.name != name:
+            record("site.renamed", target=site, site=site, study=study,
+                   summary=f"site {slug} renamed to {name!r}",
+                   params={"from": site.name, "to": name})
             site.name = name
             site.save(update_fields=["name"])
         joined = not site.studies.filter(pk=study.pk).exists()

@@ -4,6 +4,7 @@ from django.core.paginator import Paginator
 from django.db.models import Count, Max, Q
 from django.http import JsonResponse
 from django.shortcuts import render
+from django.views.decorators.http import require_GET
 
 from portal.accounts.permissions import (
     access,
@@ -250,6 +251,7 @@ def site_page(request, site_slug):
 
 
 @access("checked")
+@require_GET
 def api_me(request):
     sites = visible_sites(request.user)
     return JsonResponse({

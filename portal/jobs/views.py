@@ -2,6 +2,7 @@
 
 from django.http import JsonResponse
 from django.shortcuts import render
+from django.views.decorators.http import require_GET
 
 from portal.accounts.permissions import access
 from portal.jobs.access import visible_job
@@ -32,5 +33,6 @@ def job_json(job):
 
 
 @access("checked")
+@require_GET
 def api_job(request, job_id):
     return JsonResponse(job_json(visible_job(request.user, job_id)))

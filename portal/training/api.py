@@ -3,7 +3,7 @@
 import json
 
 from django.http import JsonResponse
-from django.views.decorators.http import require_http_methods
+from django.views.decorators.http import require_GET, require_http_methods
 
 from portal.accounts.permissions import access, runs_anywhere
 from portal.features.access import may_run_on, may_see
@@ -42,6 +42,7 @@ def create_run(request):
 
 
 @access("checked")
+@require_GET
 def run_status(request, training_id):
     run, _ = visible_run(request.user, training_id)
     return JsonResponse(run_report(run))

@@ -35,6 +35,16 @@ def test_setup_commands_are_idempotent_and_print_password_once():
     assert Event.objects.filter(verb="membership.changed").count() == 1
 
 
+def test_renaming_a_study_or_site_is_recorded():
+    run("add_study", "rail", "--name", "Rail study")
+    run("add_site", "north", "--study", "rail", "--name", "North lab")
+    run("add_study", "rail", "--name", "Rail workload study")
+    run("add_site", "north", "--study", "rail", "--name", "Northern lab")
+    renamed = {e.verb: e.params for e in Event.objects.filter(verb__endswith=".renamed")}
+    assert renamed == {"study.renamed": {"from": "Rail study", "to": "Rail workload study"},
+                       "site.renamed": {"from": "North lab", "to": "Northern lab"}}
+
+
 @pytest.mark.parametrize("args, message", [
     (("add_site", "x", "--study", "nope", "--name", "X"), "unknown study 'nope'"),
     (("add_member", "u", "--site", "nope", "--role", "analyst"), "unknown site 'nope'"),

@@ -26,8 +26,9 @@ CODES = {400: "bad_request", 401: "unauthorized", 403: "forbidden", 404: "not_fo
          405: "method_not_allowed", 500: "internal_error"}
 
 #: Endpoints that take only some methods (everything else answers the method's 405).
+#: Every API endpoint takes only the methods it serves (all of them, now).
 METHOD_BOUND = {"api:uploads", "api:upload", "api:upload_chunk", "api:upload_finish",
-                "api:training"}
+                "api:training", "api:me", "api:job", "api:training_run"}
 
 
 def assert_error_shape(response, status):
