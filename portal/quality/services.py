@@ -11,7 +11,7 @@ from portal.quality.models import ChannelOverride, QCRound, QCRun
 from portal.studies.models import current_protocol
 
 #: Bumped whenever the checks change what they compute; part of every result's identity.
-QC_CODE_VERSION = "qc-1"
+QC_CODE_VERSION = "qc-2"
 
 
 def settings_digest(qc_settings):

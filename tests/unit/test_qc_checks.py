@@ -13,7 +13,9 @@ from fixtures.demo import SITES
 from fixtures.demo.protocol import draw_person
 from fixtures.demo.signals import simulate_recording
 from workers.qc import (
+    CODE_VERSION,
     QCSettings,
+    check_amplitude_factor,
     check_bridging,
     check_correlation,
     check_deviation,
@@ -26,7 +28,7 @@ from workers.qc import (
     run_qc,
     run_qc_array,
 )
-from workers.qc.checks import broadband_factor, check_jumps
+from workers.qc.checks import broadband_factor, check_jumps, find_jumps
 from workers.qc.positions import (
     nearest_neighbours,
     on_unit_sphere,
@@ -35,7 +37,7 @@ from workers.qc.positions import (
     template_position,
 )
 from workers.qc.signals import highpass, lowpass, welch_spectrum
-from workers.qc.verdict import decide_verdict
+from workers.qc.verdict import decide_verdict, effective_verdict
 
 SFREQ_HZ = 250.0
 NAMES_16 = ("Fp1 Fp2 F3 Fz F4 FCz C3 Cz C4 T7 T8 P3 Pz P4 O1 O2").split()
@@ -100,10 +102,11 @@ def test_no_signal_mask_marks_the_run_itself():
     assert np.flatnonzero(mask[1]).tolist() == list(range(100, 200))
 
 
-def test_deviation_flags_large_and_small_channels():
+def test_deviation_and_amplitude_factor_flag_large_and_small_channels():
     """Robust z of the IQR amplitude (PREP definition): a channel at 5 times the amplitude
-    scores far above 5; with the broadband factor rule a tenth of the amplitude is flagged
-    too, whatever its z. Source: common practice, no source."""
+    scores far above 5; the broadband factor rule flags it too, and a tenth of the
+    amplitude as well, reporting the factor and the bound it passed.
+    Source: common practice, no source."""
     data = _eeg()
     data[4] *= 5.0
     data[9] *= 0.1
@@ -114,9 +117,39 @@ def test_deviation_flags_large_and_small_channels():
     assert factor[4] == pytest.approx(5.0, rel=0.1)
     assert factor[9] == pytest.approx(0.1, rel=0.1)
     outcome = check_deviation(drift_free, reference=reference, z_max=5.0, ratio_min=1.5,
-                              factor=factor, factor_max=3.0)
+                              factor=factor)
     assert outcome.values[4] > 5.0
-    assert np.flatnonzero(outcome.flagged).tolist() == [4, 9]
+    assert outcome.flagged[4]
+    by_factor = check_amplitude_factor(factor, factor_max=3.0)
+    assert np.flatnonzero(by_factor.flagged).tolist() == [4, 9]
+    np.testing.assert_array_equal(by_factor.values, factor)
+    assert by_factor.threshold_for(4) == 3.0
+    assert by_factor.threshold_for(9) == pytest.approx(1 / 3)
+    assert by_factor.words(4) == "amplitude over 3 times the others'"
+    assert by_factor.words(9) == "amplitude under 1/3 of the others'"
+
+
+def test_a_channel_caught_by_the_amplitude_factor_alone_reports_that_rule():
+    """Amplitudes spread widely (gains from 0.5 to 2): a channel at a fifth of the others'
+    amplitude has an IQR-based z well above -5, so PREP's deviation rule passes it, and only
+    the broadband factor rule flags it. Its reason names that rule with the factor (about
+    0.2) and the bound 1/3, not the deviation z; its metrics hold both.
+    Source: common practice, no source."""
+    rng = np.random.default_rng(11)
+    data = _eeg(seconds=90.0, seed=11)
+    data *= np.linspace(0.5, 2.0, 16)[rng.permutation(16)][:, None]
+    data[6] = 0.2 * data[6] / data[6].std() * np.median(data.std(axis=1))
+    result = run_qc_array(data, sfreq_hz=SFREQ_HZ, ch_names=NAMES_16, power_line_hz=50.0)
+    channel = result.channels["C3"]
+    assert channel.status == "bad"
+    assert [reason.check for reason in channel.reasons] == ["amplitude_factor"]
+    reason = channel.reasons[0]
+    assert reason.value == pytest.approx(0.2, rel=0.15)
+    assert reason.value == channel.metrics["amplitude_factor"]
+    assert reason.threshold == pytest.approx(1 / 3)
+    assert reason.words == "amplitude under 1/3 of the others'"
+    assert abs(channel.metrics["deviation"]) < 5.0
+    assert result.bad_channels == ["C3"]
 
 
 def test_deviation_guard_spares_a_strong_regional_rhythm():
@@ -205,15 +238,102 @@ def test_correlation_skips_windows_without_signal():
 
 def test_jumps_flag_a_popping_channel_but_not_shared_steps():
     """Five 150 uV steps on one channel are jumps; a step made by every channel at once is
-    a common event; one lone step is below the minimum count. Source: common practice, no source."""
+    a common event; one lone step is below the minimum count. The pop at 12 s falls on a
+    moment when 13 of the other 15 channels step by over 4 robust SDs of their own steps
+    (this signal is mostly common to all channels), so it is taken for a common event: four
+    of five count. Source: common practice, no source."""
     data = _eeg()
     for onset in (500, 1500, 3000, 4500, 6000):
         data[5, onset:] += 150 * UV
     data[:, 2500:] += 200 * UV
     data[8, 7000:] += 150 * UV
     outcome = check_jumps(data, sfreq_hz=SFREQ_HZ, reference=_reference(16))
-    assert outcome.values[5] == pytest.approx(5 / 0.5, rel=1e-3)
+    assert outcome.values[5] == pytest.approx(4 / 0.5, rel=1e-3)
     assert np.flatnonzero(outcome.flagged).tolist() == [5]
+
+
+EPOCH_S = 3.0
+
+
+@pytest.fixture(scope="module")
+def joined_epochs():
+    """30 epochs of 3 s cut from 270 s of the 32-channel demo site (demo signal model, no
+    faults) and joined in a shuffled order: every channel breaks at every 3 s boundary, by
+    an amount that clears the per-channel jump threshold on a few channels only (as in
+    recordings exported as joined epochs)."""
+    site = SITES[1]
+    person = draw_person(participant_id="sub-joined", rng=np.random.default_rng(5))
+    n_epochs = 30
+    source, _, _ = simulate_recording(
+        ch_names=site.ch_names, sfreq_hz=site.sfreq_hz,
+        n_times=int(3 * n_epochs * EPOCH_S * site.sfreq_hz), condition="rest", person=person,
+        site=site, channel_fault_kinds=(), with_bad_segments=False,
+        signal_rng=np.random.default_rng(6), fault_rng=np.random.default_rng(7),
+    )
+    n_times = int(EPOCH_S * site.sfreq_hz)
+    starts = np.random.default_rng(1).choice(
+        np.arange(0, source.shape[1] - n_times, n_times), n_epochs, replace=False)
+    data = np.concatenate([source[:, start:start + n_times] for start in starts], axis=1)
+    return list(site.ch_names), site.sfreq_hz, data
+
+
+def test_jumps_shared_by_most_channels_count_against_none(joined_epochs):
+    """Breaks that every channel makes at once are found at the epoch boundaries and flag
+    no channel, though each clears the jump threshold on some channels (the old rule, which
+    asked the other channels to clear it too, flagged eight of them); a channel's own five
+    pops between the boundaries still flag it. Source: common practice, no source."""
+    ch_names, sfreq_hz, data = joined_epochs
+    reference = _reference(len(ch_names))
+    found = find_jumps(data, sfreq_hz=sfreq_hz, reference=reference)
+    assert len(found.shared_onsets_s) >= 10
+    offsets_s = np.mod(found.shared_onsets_s + EPOCH_S / 2, EPOCH_S) - EPOCH_S / 2
+    assert np.abs(offsets_s).max() <= 1 / sfreq_hz
+    assert not check_jumps(data, sfreq_hz=sfreq_hz, reference=reference).flagged.any()
+
+    popping = data.copy()
+    minutes = data.shape[1] / sfreq_hz / 60
+    for onset_s in (10.4, 25.7, 40.2, 61.1, 77.9):
+        popping[7, int(onset_s * sfreq_hz):] += 150 * UV
+    outcome = check_jumps(popping, sfreq_hz=sfreq_hz, reference=reference)
+    assert np.flatnonzero(outcome.flagged).tolist() == [7]
+    assert outcome.values[7] == pytest.approx(5 / minutes, rel=1e-3)
+
+
+def test_a_blink_ramp_is_not_a_jump():
+    """At 128 Hz a 300 uV blink edge rising over five samples makes steps far above the
+    jump threshold, but no single one stands out from its neighbours: no jump. The same
+    300 uV made in one sample is a jump. Source: common practice, no source."""
+    sfreq_hz = 128.0
+    rng = np.random.default_rng(3)
+    data = 10 * UV * np.cumsum(rng.standard_normal((8, int(60 * sfreq_hz))), axis=1) / 8
+    ramp = data.copy()
+    step = data.copy()
+    for onset in range(600, 7000, 800):
+        ramp[0, onset:onset + 5] += 300 * UV * np.arange(1, 6) / 5
+        ramp[0, onset + 5:] += 300 * UV
+        step[0, onset:] += 300 * UV
+    reference = _reference(8)
+    assert not check_jumps(ramp, sfreq_hz=sfreq_hz, reference=reference).flagged.any()
+    assert np.flatnonzero(check_jumps(step, sfreq_hz=sfreq_hz, reference=reference)
+                          .flagged).tolist() == [0]
+
+
+def test_run_qc_rejects_time_around_shared_jumps(joined_epochs):
+    """The whole check on the joined epochs: no channel bad, and each shared break becomes
+    a rejected segment of 0.25 s on each side with a reason in words; the verdict is not
+    "fail". Source: common practice, no source."""
+    ch_names, sfreq_hz, data = joined_epochs
+    result = run_qc_array(data, sfreq_hz=sfreq_hz, ch_names=ch_names, power_line_hz=50.0)
+    assert result.bad_channels == []
+    jumps = [s for s in result.segments if any("sudden jump" in r for r in s.reasons)]
+    assert len(jumps) >= 10
+    for segment in jumps:
+        centre_s = segment.onset_s + segment.duration_s / 2
+        assert segment.duration_s == pytest.approx(0.5, abs=1e-9)
+        assert abs(centre_s - EPOCH_S * round(centre_s / EPOCH_S)) <= 1 / sfreq_hz
+        assert segment.reasons == [
+            "sudden jump on many channels at once (a break in the recording or a reset)"]
+    assert result.verdict != "fail"
 
 
 def test_mains_flags_one_humming_channel_and_huge_hum_everywhere():
@@ -522,13 +642,45 @@ def test_result_as_dict_is_json_ready():
     result = run_qc_array(data, sfreq_hz=SFREQ_HZ, ch_names=NAMES_16, power_line_hz=50.0)
     out = result.as_dict()
     text = json.dumps(out, allow_nan=False)
-    assert json.loads(text)["code_version"] == "qc-1"
+    assert json.loads(text)["code_version"] == CODE_VERSION
     assert out["settings_digest"] == QCSettings().digest()
     assert out["channels"]["Fp1"]["metrics"]["correlation"] is None
     assert out["channels"]["Fp1"]["reasons"][0]["words"] == "no signal"
     assert set(out["psd"]["channels"]) == set(NAMES_16)
     deviation = out["channels"]["Fz"]["metrics"]["deviation"]
     assert deviation == float(f"{deviation:.4g}")
+
+
+def test_verdict_after_decisions_uses_the_checks_rule():
+    """A stored result (as_dict, JSON round trip) decided again without any decision gives
+    the checks' own verdict and reasons; setting its bad channels good gives the verdict of
+    a recording without them, and a good channel set bad counts with its words. The
+    result is not changed. Source: common practice, no source."""
+    data = _eeg(seconds=90.0)
+    data[3] = 0.0
+    data[11] *= 8.0
+    result = run_qc_array(data, sfreq_hz=SFREQ_HZ, ch_names=NAMES_16, power_line_hz=50.0)
+    assert result.bad_channels == ["Fz", "P3"] and result.verdict == "review"
+    stored = json.loads(json.dumps(result.as_dict(include_psd=False)))
+    frozen = json.dumps(stored, sort_keys=True)
+    settings = QCSettings()
+    same = effective_verdict(stored, {}, settings=settings)
+    assert (same["verdict"], same["verdict_reasons"]) == (result.verdict,
+                                                          result.verdict_reasons)
+    assert same["n_bad_channels"] == 2 and same["n_channels"] == 16
+    cleared = effective_verdict(stored, {"Fz": "good", "P3": "good"}, settings=settings)
+    assert cleared["verdict"] == "pass" and cleared["bad_channels"] == []
+    assert cleared["verdict_reasons"] == [
+        "0 of 16 channels bad and 0% of the time rejected: within the protocol's limits"]
+    more = effective_verdict(stored, {"Fz": "good", "Cz": "bad", "O1": "bad"},
+                             settings=settings)
+    assert more["bad_channels"] == ["Cz", "P3", "O1"] and more["verdict"] == "review"
+    assert "set bad by a person (2)" in more["verdict_reasons"][0]
+    assert json.dumps(stored, sort_keys=True) == frozen
+    del stored["verdict_inputs"]
+    legacy = effective_verdict(stored, {}, settings=settings)
+    assert (legacy["verdict"], legacy["verdict_reasons"]) == (result.verdict,
+                                                              result.verdict_reasons)
 
 
 def test_verdict_rules():

@@ -29,6 +29,8 @@ WORDS = {
     "marked_by_site": "marked by site",
     "dropout": "no signal",
     "deviation": "amplitude far from the others",
+    "amplitude_factor": "amplitude over {limit:g} times the others'",
+    "amplitude_factor_low": "amplitude under 1/{limit:g} of the others'",
     "high_frequency": "much high-frequency noise",
     "correlation": "does not follow the other channels",
     "jumps": "sudden jumps in the signal",
@@ -44,7 +46,8 @@ class ChannelCheck:
 
     ``values`` is NaN where a channel could not be assessed; ``note`` says in words why a
     check was skipped or adapted; ``partners`` (bridging only) names each channel's closest
-    neighbour.
+    neighbour; ``low_threshold`` (two-sided checks only) is the bound a value below 1 is
+    compared with.
     """
 
     check: str
@@ -53,13 +56,23 @@ class ChannelCheck:
     flagged: np.ndarray
     note: str | None = None
     partners: list = field(default_factory=list)
+    low_threshold: float | None = None
+
+    def _low(self, index):
+        return self.low_threshold is not None and self.values[index] < 1.0
 
     def words(self, index):
         """What a reader is told about channel ``index`` when it is flagged."""
-        text = WORDS[self.check]
         if self.partners:
-            return text.format(partner=self.partners[index])
-        return text
+            return WORDS[self.check].format(partner=self.partners[index])
+        if self.low_threshold is not None:
+            key = f"{self.check}_low" if self._low(index) else self.check
+            return WORDS[key].format(limit=self.threshold)
+        return WORDS[self.check]
+
+    def threshold_for(self, index):
+        """The threshold channel ``index`` was compared with."""
+        return self.low_threshold if self._low(index) else self.threshold
 
 
 def _skipped(check, n_channels, *, threshold, note):
@@ -124,8 +137,7 @@ def broadband_factor(spectrum, *, reference, l_freq_hz, h_freq_hz, exclude=None)
     return np.exp(0.5 * np.median(log_power - typical, axis=1))
 
 
-def check_deviation(data, *, reference, z_max=5.0, ratio_min=1.0, factor=None,
-                    factor_max=0.0, keep_time=None):
+def check_deviation(data, *, reference, z_max=5.0, ratio_min=1.0, factor=None, keep_time=None):
     """Robust z-score of each channel's amplitude against the others (PREP definition).
 
     ``data`` should be free of drifts (high-passed at about 1 Hz). The amplitude is the
@@ -135,24 +147,35 @@ def check_deviation(data, *, reference, z_max=5.0, ratio_min=1.0, factor=None,
     Beyond PREP, when ``ratio_min`` > 1 a flagged channel's broadband amplitude ``factor``
     (see :func:`broadband_factor`) must also be at least ``ratio_min`` or at most
     1 / ``ratio_min``, so that a strong regional rhythm (frontal theta, occipital alpha) is
-    not taken for a fault. And a ``factor`` of at least ``factor_max`` (or at most its
-    inverse) is flagged whatever the z-score: when the amplitudes spread widely the IQR-based
-    z cannot fall below -5 even for a channel with a tenth of the others' amplitude.
-    ``ratio_min=1, factor_max=0`` gives PREP's rule.
+    not taken for a fault. ``ratio_min=1`` gives PREP's rule.
     """
     kept = data if keep_time is None else data[:, keep_time]
     amplitude = robust.iqr_sd(kept, axis=1)
     z = robust.robust_z(amplitude, reference=reference, spread="iqr")
     flagged = np.abs(z) > z_max
-    if ratio_min > 1.0 or factor_max > 0.0:
+    if ratio_min > 1.0:
         if factor is None:
-            raise ValueError("check_deviation with ratio_min > 1 or factor_max > 0 needs the "
-                             "broadband factor")
-        if ratio_min > 1.0:
-            flagged &= (factor >= ratio_min) | (factor <= 1.0 / ratio_min)
-        if factor_max > 0.0:
-            flagged |= (factor >= factor_max) | (factor <= 1.0 / factor_max)
+            raise ValueError("check_deviation with ratio_min > 1 needs the broadband factor")
+        flagged &= (factor >= ratio_min) | (factor <= 1.0 / ratio_min)
     return ChannelCheck("deviation", z, float(z_max), flagged)
+
+
+def check_amplitude_factor(factor, *, factor_max=3.0):
+    """Broadband amplitude (see :func:`broadband_factor`) at least ``factor_max`` times the
+    reference channels', or at most 1 / ``factor_max`` of it (ours, beside PREP's deviation:
+    when the amplitudes spread widely the IQR-based z cannot fall below -5 even for a
+    channel with a tenth of the others' amplitude). The value is the factor; the threshold a
+    channel is compared with is ``factor_max`` above 1 and its inverse below. ``factor_max``
+    0 turns the check off.
+    """
+    factor = np.asarray(factor, dtype=float)
+    if factor_max <= 0:
+        return _skipped("amplitude_factor", factor.size, threshold=factor_max,
+                        note="broadband amplitude factor not checked (turned off)")
+    with np.errstate(invalid="ignore"):
+        flagged = (factor >= factor_max) | (factor <= 1.0 / factor_max)
+    return ChannelCheck("amplitude_factor", factor, float(factor_max), flagged,
+                        low_threshold=1.0 / factor_max)
 
 
 def _high_band(*, sfreq_hz, power_line_hz, cutoff_hz, max_nyquist_share, mains_band_hz,
@@ -210,17 +233,35 @@ def check_high_frequency(spectrum, *, sfreq_hz, reference, power_line_hz=None,
     return ChannelCheck("high_frequency", z, float(z_max), flagged, note=note)
 
 
-def check_jumps(data, *, sfreq_hz, reference, z_min=10.0, step_min_v=40e-6,
-                rate_max_per_min=1.0, min_count=2, shared_share=0.25, min_gap_s=0.1,
-                keep_time=None, no_signal=None):
-    """Sudden jumps (electrode pops): sample-to-sample steps of one channel that exceed both
-    ``z_min`` robust standard deviations of its own steps and ``step_min_v``.
+@dataclass(frozen=True)
+class Jumps:
+    """Sudden jumps of a recording (see :func:`find_jumps`).
 
-    A step that at least ``shared_share`` of the reference channels also make within
-    ``min_gap_s`` is a common event (movement, muscle), not this channel's; steps closer than
-    ``min_gap_s`` count once; rejected time and no-signal runs are left out. The value is
-    jumps per minute of kept time; flagged above ``rate_max_per_min`` with at least
-    ``min_count`` jumps.
+    ``own`` (channels x steps) marks each channel's jumps that no common event explains;
+    ``shared_onsets_s`` lists the moments (s) of the jumps that most channels make together.
+    """
+
+    own: np.ndarray
+    shared_onsets_s: np.ndarray
+
+
+def find_jumps(data, *, sfreq_hz, reference, z_min=10.0, step_min_v=40e-6, abrupt_ratio=2.0,
+               shared_z_min=4.0, shared_share=0.25, min_gap_s=0.1, keep_time=None,
+               no_signal=None):
+    """Sudden jumps (electrode pops, breaks between joined recordings, amplifier resets).
+
+    A jump is a sample-to-sample step of one channel that exceeds both ``z_min`` robust
+    standard deviations of its own steps and ``step_min_v``, and is at least
+    ``abrupt_ratio`` times the steps just before and after it: the level changes within one
+    sample. A blink or eye movement rises over several samples, and a lone spike or a burst
+    of high-frequency noise makes two opposite steps in a row; neither is a jump.
+
+    A jump is shared when at least ``shared_share`` of the reference channels step by at
+    least ``shared_z_min`` robust standard deviations of their own steps at the same moment
+    (within one sample): a break in the recording or a reset moves every channel at once,
+    though by amounts that clear the per-channel threshold on a few channels only. Shared
+    jumps closer than ``min_gap_s`` are one event. Rejected time (outside ``keep_time``) and
+    no-signal runs are left out.
     """
     n_channels, n_times = data.shape
     steps = np.abs(np.diff(data, axis=1))
@@ -232,15 +273,46 @@ def check_jumps(data, *, sfreq_hz, reference, z_min=10.0, step_min_v=40e-6,
         per_channel = per_channel & ~(no_signal[:, 1:] | no_signal[:, :-1])
     scale = np.array([robust.mad_sd(row[ok]) if ok.any() else np.nan
                       for row, ok in zip(steps, per_channel, strict=True)])
+    padded = np.pad(steps, ((0, 0), (1, 1)))
+    around = np.maximum(padded[:, :-2], padded[:, 2:])
     with np.errstate(divide="ignore", invalid="ignore"):
-        large = (steps >= z_min * scale[:, None]) & (steps >= step_min_v) & per_channel
+        z = steps / scale[:, None]
+        large = ((z >= z_min) & (steps >= step_min_v) & (steps >= abrupt_ratio * around)
+                 & per_channel)
+        unusual = (z >= shared_z_min) & per_channel
+    needed = max(2, int(np.ceil(shared_share * reference.sum())))
+    together = ndimage.maximum_filter1d(unusual[reference].astype(np.uint8), size=3, axis=1)
+    shared = together.sum(axis=0) >= needed
     gap = max(1, int(round(min_gap_s * sfreq_hz)))
-    near = ndimage.maximum_filter1d(large[reference].astype(np.uint8), size=2 * gap + 1, axis=1)
-    shared = near.sum(axis=0) >= max(2, int(np.ceil(shared_share * reference.sum())))
-    large &= ~shared
+    at = np.flatnonzero(large.any(axis=0) & shared)
+    first = at[np.r_[True, np.diff(at) > gap]] if at.size else at
+    return Jumps(own=large & ~shared, shared_onsets_s=(first + 1) / sfreq_hz)
+
+
+def check_jumps(data, *, sfreq_hz, reference, z_min=10.0, step_min_v=40e-6, abrupt_ratio=2.0,
+                shared_z_min=4.0, rate_max_per_min=1.0, min_count=2, shared_share=0.25,
+                min_gap_s=0.1, keep_time=None, no_signal=None, jumps=None):
+    """A channel's own sudden jumps (see :func:`find_jumps`; jumps most channels share are
+    not counted against any channel). Pass ``jumps`` to reuse them; ``keep_time`` then
+    limits the count to kept time.
+
+    Jumps closer than ``min_gap_s`` count once. The value is jumps per minute of kept time;
+    flagged above ``rate_max_per_min`` with at least ``min_count`` jumps.
+    """
+    n_channels, n_times = data.shape
+    if jumps is None:
+        jumps = find_jumps(data, sfreq_hz=sfreq_hz, reference=reference, z_min=z_min,
+                           step_min_v=step_min_v, abrupt_ratio=abrupt_ratio,
+                           shared_z_min=shared_z_min, shared_share=shared_share,
+                           min_gap_s=min_gap_s, keep_time=keep_time, no_signal=no_signal)
+    usable = np.ones(n_times - 1, dtype=bool)
+    if keep_time is not None:
+        usable &= keep_time[1:] & keep_time[:-1]
+    own = jumps.own & usable
+    gap = max(1, int(round(min_gap_s * sfreq_hz)))
     counts = np.zeros(n_channels)
     for index in range(n_channels):
-        where = np.flatnonzero(large[index])
+        where = np.flatnonzero(own[index])
         if where.size:
             counts[index] = 1 + np.count_nonzero(np.diff(where) > gap)
     minutes = usable.sum() / sfreq_hz / 60.0

@@ -7,7 +7,7 @@ import numpy as np
 
 from .segments import Blinks, Segment
 
-CODE_VERSION = "qc-1"
+CODE_VERSION = "qc-2"
 
 
 def _significant(value, digits=4):
@@ -102,6 +102,7 @@ class QCResult:
     notes: list = field(default_factory=list)
     settings_digest: str = ""
     code_version: str = CODE_VERSION
+    verdict_inputs: dict = field(default_factory=dict)
 
     @property
     def bad_channels(self):
@@ -115,12 +116,15 @@ class QCResult:
 
     def as_dict(self, *, include_psd=True):
         """JSON-ready dict: floats rounded (values to 4 significant digits, times to 1 ms,
-        shares to 0.01 %, spectra to 0.1 dB), NaN as null."""
+        shares to 0.01 %, spectra to 0.1 dB), NaN as null; the verdict's inputs are kept
+        whole, so that the verdict can be decided again after people's channel decisions
+        (:func:`workers.qc.verdict.effective_verdict`) by the same rule and numbers."""
         out = {
             "code_version": self.code_version,
             "settings_digest": self.settings_digest,
             "verdict": self.verdict,
             "verdict_reasons": list(self.verdict_reasons),
+            "verdict_inputs": dict(self.verdict_inputs),
             "sfreq_hz": _significant(self.sfreq_hz, 6),
             "duration_s": _fixed(self.duration_s, 3),
             "power_line_hz": _significant(self.power_line_hz),

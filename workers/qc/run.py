@@ -12,14 +12,21 @@ import numpy as np
 from . import checks
 from .positions import nearest_neighbours, on_unit_sphere, resolve_positions
 from .result import CODE_VERSION, ChannelResult, PowerSpectrum, QCResult, Reason
-from .segments import count_blinks, keep_mask, merge_segments, reject_windows, window_flags
+from .segments import (
+    combine_segments,
+    count_blinks,
+    jump_segments,
+    keep_mask,
+    merge_segments,
+    reject_windows,
+    window_flags,
+)
 from .settings import QCSettings
 from .signals import highpass, lowpass, lowpass_applies, mains_mask, welch_spectrum
-from .verdict import decide_verdict
+from .verdict import MOSTLY_SILENT_SHARE, channel_verdict
 
-CHECK_ORDER = ("dropout", "deviation", "high_frequency", "correlation", "jumps", "mains",
-               "bridging", "predictability")
-MOSTLY_SILENT_SHARE = 0.5
+CHECK_ORDER = ("dropout", "deviation", "amplitude_factor", "high_frequency", "correlation",
+               "jumps", "mains", "bridging", "predictability")
 MIN_KEPT_SHARE = 0.5
 UV = 1e-6
 
@@ -134,8 +141,14 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
     )
     if flags.muscle_note:
         notes.append(flags.muscle_note)
+    jumps = checks.find_jumps(
+        filled, sfreq_hz=sfreq_hz, reference=live if live.any() else ~marked,
+        z_min=settings.jump_z_min, step_min_v=settings.jump_min_uv * UV,
+        abrupt_ratio=settings.jump_abrupt_ratio, shared_z_min=settings.jump_shared_z_min,
+        shared_share=settings.segment_channel_share, no_signal=no_signal,
+    )
     provisional = _segments(flags, channels=live if live.any() else ~marked,
-                            settings=settings, sfreq_hz=sfreq_hz)
+                            settings=settings, sfreq_hz=sfreq_hz, jumps=jumps)
     keep = keep_mask(provisional, n_times=n_times, sfreq_hz=sfreq_hz)
     if keep.mean() < MIN_KEPT_SHARE:
         notes.append("channel checks used the whole recording: bad segments cover more than "
@@ -146,7 +159,7 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
     results, spectrum = _channel_checks(
         filled, drift_free, sfreq_hz=sfreq_hz, ch_names=ch_names, marked=marked,
         no_signal=no_signal, keep=keep, settings=settings, power_line_hz=power_line_hz,
-        positions=positions, random_state=random_state, notes=notes,
+        positions=positions, random_state=random_state, notes=notes, jumps=jumps,
     )
     channels = _channel_results(ch_names, results, marked_by_site=marked_by_site,
                                 mostly_silent=mostly_silent)
@@ -154,7 +167,7 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
     reference = ~marked & ~results["dropout"].flagged
 
     segments = _segments(flags, channels=~bad if (~bad).any() else reference,
-                         settings=settings, sfreq_hz=sfreq_hz)
+                         settings=settings, sfreq_hz=sfreq_hz, jumps=jumps)
     duration_s = n_times / sfreq_hz
     rejected_share = min(1.0, sum(segment.duration_s for segment in segments) / duration_s)
     blinks = count_blinks(
@@ -162,13 +175,16 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
         keep_time=keep_mask(segments, n_times=n_times, sfreq_hz=sfreq_hz),
         min_amplitude_v=settings.blink_min_amplitude_uv * UV, z_min=settings.blink_z_min,
     )
-    verdict, verdict_reasons = decide_verdict(
-        settings=settings, sfreq_hz=sfreq_hz, duration_s=duration_s, n_channels=n_channels,
-        bad_reasons={name: [reason.words for reason in channel.reasons]
-                     for name, channel in channels.items() if channel.status == "bad"},
-        n_with_signal=int((~mostly_silent).sum()), rejected_share=rejected_share,
-        uncorrelated_share=float((results["correlation"].flagged & reference).sum())
+    verdict_inputs = {
+        "sfreq_hz": float(sfreq_hz), "duration_s": float(duration_s),
+        "n_with_signal": int((~mostly_silent).sum()), "rejected_share": float(rejected_share),
+        "uncorrelated_share": float((results["correlation"].flagged & reference).sum())
         / max(1, int(reference.sum())),
+    }
+    verdict, verdict_reasons = channel_verdict(
+        settings=settings, inputs=verdict_inputs,
+        channels={name: (channel.status, [reason.words for reason in channel.reasons])
+                  for name, channel in channels.items()},
     )
     power_db = 10.0 * np.log10(np.maximum(spectrum.power / UV**2, 1e-30))
     return QCResult(
@@ -178,6 +194,7 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
         blinks=blinks,
         verdict=verdict,
         verdict_reasons=verdict_reasons,
+        verdict_inputs=verdict_inputs,
         psd=PowerSpectrum(freqs_hz=spectrum.freqs_hz, ch_names=ch_names, power_db=power_db),
         sfreq_hz=float(sfreq_hz),
         duration_s=float(duration_s),
@@ -188,16 +205,20 @@ def run_qc_array(data, *, sfreq_hz, ch_names, settings=None, power_line_hz=50.0,
     )
 
 
-def _segments(flags, *, channels, settings, sfreq_hz):
-    """Rejected intervals from the window flags of ``channels``."""
-    return merge_segments(
+def _segments(flags, *, channels, settings, sfreq_hz, jumps):
+    """Rejected intervals from the window flags of ``channels``, and around the jumps most
+    channels make together that these do not already cover."""
+    windows = merge_segments(
         reject_windows(flags, channels=channels, channel_share=settings.segment_channel_share),
         starts=flags.starts, stops=flags.stops, sfreq_hz=sfreq_hz,
     )
+    around_jumps = jump_segments(jumps.shared_onsets_s, margin_s=settings.jump_margin_s,
+                                 duration_s=flags.stops[-1] / sfreq_hz, rejected=windows)
+    return combine_segments(windows, around_jumps)
 
 
 def _channel_checks(filled, drift_free, *, sfreq_hz, ch_names, marked, no_signal, keep,
-                    settings, power_line_hz, positions, random_state, notes):
+                    settings, power_line_hz, positions, random_state, notes, jumps):
     """Every channel check on the kept time; returns ({check: ChannelCheck}, Spectrum) and
     appends the checks' notes to ``notes``."""
     n_channels, n_times = filled.shape
@@ -224,16 +245,17 @@ def _channel_checks(filled, drift_free, *, sfreq_hz, ch_names, marked, no_signal
         notes.append(f"no electrode position for {', '.join(missing)}: compared with every "
                      "channel for near-identical signals, not predicted from neighbours")
 
+    factor = checks.broadband_factor(spectrum, reference=reference,
+                                     l_freq_hz=settings.highpass_hz,
+                                     h_freq_hz=settings.lowpass_hz, exclude=mains_bands)
     results = {
         "dropout": dropout,
         "deviation": checks.check_deviation(
             drift_free, reference=reference, z_max=settings.deviation_z_max,
-            ratio_min=settings.deviation_ratio_min,
-            factor=checks.broadband_factor(spectrum, reference=reference,
-                                           l_freq_hz=settings.highpass_hz,
-                                           h_freq_hz=settings.lowpass_hz, exclude=mains_bands),
-            factor_max=settings.deviation_factor_max, keep_time=keep,
+            ratio_min=settings.deviation_ratio_min, factor=factor, keep_time=keep,
         ),
+        "amplitude_factor": checks.check_amplitude_factor(
+            factor, factor_max=settings.deviation_factor_max),
         "high_frequency": checks.check_high_frequency(
             spectrum, sfreq_hz=sfreq_hz, reference=reference, power_line_hz=power_line_hz,
             cutoff_hz=settings.hf_cutoff_hz,
@@ -253,8 +275,7 @@ def _channel_checks(filled, drift_free, *, sfreq_hz, ch_names, marked, no_signal
             filled, sfreq_hz=sfreq_hz, reference=reference, z_min=settings.jump_z_min,
             step_min_v=settings.jump_min_uv * UV,
             rate_max_per_min=settings.jump_rate_max_per_min,
-            min_count=settings.jump_min_count, shared_share=settings.segment_channel_share,
-            keep_time=keep, no_signal=no_signal,
+            min_count=settings.jump_min_count, keep_time=keep, jumps=jumps,
         ),
         "mains": checks.check_mains(
             spectrum, sfreq_hz=sfreq_hz, power_line_hz=power_line_hz, reference=reference,
@@ -272,7 +293,7 @@ def _channel_checks(filled, drift_free, *, sfreq_hz, ch_names, marked, no_signal
     }
     if settings.check_predictability:
         predictors = reference.copy()
-        for name in ("deviation", "correlation", "bridging"):
+        for name in ("deviation", "amplitude_factor", "correlation", "bridging"):
             predictors &= ~results[name].flagged
         # 2.5 samples per cycle of the low-pass edge are enough for a correlation; every
         # further sample would only add cost.
@@ -309,7 +330,7 @@ def _channel_results(ch_names, results, *, marked_by_site, mostly_silent):
             if mostly_silent[index] and check != "dropout":
                 continue
             reasons.append(Reason(check, outcome.words(index), float(outcome.values[index]),
-                                  outcome.threshold))
+                                  outcome.threshold_for(index)))
         channels[name] = ChannelResult(
             status="bad" if reasons else "good",
             reasons=reasons,

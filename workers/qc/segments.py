@@ -13,6 +13,7 @@ SEGMENT_WORDS = {
     "amplitude": "very large amplitude",
     "muscle": "muscle activity",
     "no_signal": "no signal on many channels",
+    "jump": "sudden jump on many channels at once (a break in the recording or a reset)",
 }
 FRONTAL = re.compile(r"^(fp|af)", re.IGNORECASE)
 BLINK_BAND_HZ = 10.0
@@ -130,6 +131,36 @@ def merge_segments(reasons, *, starts, stops, sfreq_hz):
                                 reasons=words))
         index = end + 1
     return segments
+
+
+def jump_segments(onsets_s, *, margin_s, duration_s, rejected=()):
+    """Rejected intervals of ``margin_s`` on each side of each jump that most channels make
+    together (clipped to the recording), except jumps already inside ``rejected`` segments."""
+    segments = []
+    for onset_s in onsets_s:
+        if any(s.onset_s <= onset_s < s.onset_s + s.duration_s for s in rejected):
+            continue
+        start_s = max(0.0, float(onset_s) - margin_s)
+        stop_s = min(duration_s, float(onset_s) + margin_s)
+        segments.append(Segment(onset_s=start_s, duration_s=stop_s - start_s,
+                                reasons=[SEGMENT_WORDS["jump"]]))
+    return segments
+
+
+def combine_segments(*lists):
+    """One list of segments in time order, overlapping or touching ones merged with the
+    union of their reasons."""
+    merged = []
+    for segment in sorted((s for items in lists for s in items), key=lambda s: s.onset_s):
+        last = merged[-1] if merged else None
+        if last is not None and segment.onset_s <= last.onset_s + last.duration_s + 1e-9:
+            stop_s = max(last.onset_s + last.duration_s, segment.onset_s + segment.duration_s)
+            reasons = last.reasons + [r for r in segment.reasons if r not in last.reasons]
+            merged[-1] = Segment(onset_s=last.onset_s, duration_s=stop_s - last.onset_s,
+                                 reasons=reasons)
+        else:
+            merged.append(segment)
+    return merged
 
 
 def keep_mask(segments, *, n_times, sfreq_hz):

@@ -60,8 +60,8 @@ class QCSettings:
     # rhythm such as frontal theta under workload lifts one or two channels of a sparse
     # montage above z = 5 at a few frequencies only (1.0 gives PREP's rule). And a broadband
     # amplitude beyond deviation_factor_max times (or below its inverse) the others' is
-    # flagged whatever the z, which cannot reach -5 when amplitudes spread widely (0 turns
-    # this off, as in PREP).
+    # flagged whatever the z, which cannot reach -5 when amplitudes spread widely; it is
+    # its own check, "amplitude_factor", reporting the factor (0 turns it off, as in PREP).
     deviation_z_max: float = 5.0
     deviation_ratio_min: float = 1.5
     deviation_factor_max: float = 3.0
@@ -78,10 +78,17 @@ class QCSettings:
     hf_ratio_min: float = 1.5
 
     # Sudden jumps (ours): one-sample steps above jump_z_min robust SDs of the channel's
-    # steps and above jump_min_uv, not shared by segment_channel_share of the channels;
-    # flagged above jump_rate_max_per_min with at least jump_min_count jumps.
+    # steps and above jump_min_uv, at least jump_abrupt_ratio times the steps beside them (a
+    # blink rises over several samples); flagged above jump_rate_max_per_min with at least
+    # jump_min_count jumps. A jump at a moment when segment_channel_share of the channels
+    # step by jump_shared_z_min of their own robust SDs (a break between joined recordings,
+    # an amplifier reset) counts against no channel: jump_margin_s on each side of it is
+    # rejected as a segment instead.
     jump_z_min: float = 10.0
     jump_min_uv: float = 40.0
+    jump_abrupt_ratio: float = 2.0
+    jump_shared_z_min: float = 4.0
+    jump_margin_s: float = 0.25
     jump_rate_max_per_min: float = 1.0
     jump_min_count: int = 2
 
@@ -178,6 +185,13 @@ class QCSettings:
                      "segment_window_s"):
             if getattr(self, name) <= 0:
                 raise ValueError(f"QC setting {name} must be more than 0 s")
+
+    @classmethod
+    def from_stored(cls, data):
+        """Settings from a stored dict (a round's settings); keys that are no setting of the
+        checks are left out."""
+        known = {item.name for item in dataclasses.fields(cls)}
+        return cls(**{key: value for key, value in data.items() if key in known})
 
     def as_dict(self):
         """Plain dict of every setting, in field order."""

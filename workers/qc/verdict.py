@@ -77,3 +77,62 @@ def decide_verdict(*, settings, sfreq_hz, duration_s, n_channels, bad_reasons, n
             "rejected: within the protocol's limits"
         )
     return verdict, reasons
+
+
+PERSON_BAD_WORDS = "set bad by a person"
+MOSTLY_SILENT_SHARE = 0.5
+_INPUTS = ("sfreq_hz", "duration_s", "n_with_signal", "rejected_share", "uncorrelated_share")
+
+
+def channel_verdict(*, settings, inputs, channels):
+    """The verdict rule over plain data, for the checks and for people's decisions alike.
+
+    ``inputs`` holds the recording's ``sfreq_hz``, ``duration_s``, ``n_with_signal``,
+    ``rejected_share`` and ``uncorrelated_share`` (see :func:`decide_verdict`);
+    ``channels`` maps every channel to (status, words of its reasons). Returns (verdict,
+    reasons in words).
+    """
+    bad_reasons = {name: list(words) for name, (status, words) in channels.items()
+                   if status == "bad"}
+    return decide_verdict(settings=settings, n_channels=len(channels), bad_reasons=bad_reasons,
+                          **{key: inputs[key] for key in _INPUTS})
+
+
+def stored_inputs(result):
+    """The verdict's inputs of a stored result (``QCResult.as_dict()``). Results stored
+    before they were kept whole are read from the rounded fields and the channels."""
+    if "verdict_inputs" in result:
+        return result["verdict_inputs"]
+    channels = result["channels"]
+    silent = {name for name, info in channels.items()
+              if (info.get("metrics", {}).get("dropout") or 0.0) >= MOSTLY_SILENT_SHARE}
+    usable = [info for name, info in channels.items()
+              if name not in silent and not info.get("marked_by_site")]
+    uncorrelated = sum(1 for info in usable
+                       if any(r["check"] == "correlation" for r in info.get("reasons", [])))
+    return {"sfreq_hz": result["sfreq_hz"], "duration_s": result["duration_s"],
+            "n_with_signal": len(channels) - len(silent),
+            "rejected_share": result["rejected_share"],
+            "uncorrelated_share": uncorrelated / max(1, len(usable))}
+
+
+def effective_verdict(result, statuses, *, settings):
+    """The verdict of a stored result after people's channel decisions.
+
+    ``result`` is ``QCResult.as_dict()`` as stored (never changed here); ``statuses`` maps
+    channels a person decided on to "good" or "bad". A channel set bad by a person counts
+    with the words "set bad by a person" (its checks' words if they found it bad too).
+    Returns a dict: verdict, verdict_reasons, n_bad_channels, n_channels, bad_channels.
+    """
+    channels = {}
+    for name, info in result["channels"].items():
+        words = [reason["words"] for reason in info.get("reasons", [])]
+        status = statuses.get(name, info["status"])
+        if status == "bad" and not (info["status"] == "bad" and words):
+            words = [PERSON_BAD_WORDS]
+        channels[name] = (status, words)
+    verdict, reasons = channel_verdict(settings=settings, inputs=stored_inputs(result),
+                                       channels=channels)
+    bad = [name for name, (status, _) in channels.items() if status == "bad"]
+    return {"verdict": verdict, "verdict_reasons": reasons, "n_bad_channels": len(bad),
+            "n_channels": len(channels), "bad_channels": bad}

@@ -113,8 +113,7 @@ def compute_qc(recording, qc_settings):
         marked = site_status(root / recording.path.replace(
             PurePosixPath(recording.path).name.rsplit("_", 1)[1], "channels.tsv"))
         positions = electrode_positions(raw)
-    known = {f for f in QCSettings.__dataclass_fields__}
-    settings = QCSettings(**{k: v for k, v in qc_settings.items() if k in known})
+    settings = QCSettings.from_stored(qc_settings)
     result = run_qc(raw, settings=settings, power_line_hz=recording.power_line_hz or 50.0,
                     site_status=marked, positions=positions, random_state=0)
     summary = result.as_dict()
