@@ -9,7 +9,7 @@ import datetime
 import hashlib
 
 from django.db.models import Count, F, OuterRef, Q, Subquery, Sum
-from django.db.models.functions import TruncWeek
+from django.db.models.functions import Coalesce, TruncWeek
 
 from portal.datasets.models import Block, DatasetVersion, Upload, UploadState
 from portal.quality.models import QCChannel, QCRound, QCRun
@@ -39,9 +39,18 @@ def latest_rounds(versions):
     return out
 
 
+def with_decisions(runs):
+    """``runs`` annotated with the verdict and bad-channel count after people's channel
+    decisions (``shown_verdict``, ``shown_bad``): those of its EffectiveVerdict row, else
+    the checks' own."""
+    return runs.annotate(shown_verdict=Coalesce("effective__verdict", "verdict"),
+                         shown_bad=Coalesce("effective__n_bad_channels", "n_bad_channels"))
+
+
 def current_runs(versions, rounds):
     """The QCRun rows of each site's current recordings under its newest round, as one
-    queryset (an OR of one condition per site), or None when nothing was checked."""
+    queryset (an OR of one condition per site), or None when nothing was checked; verdicts
+    and counts after people's decisions are annotated (:func:`with_decisions`)."""
     from portal.datasets.models import Recording
 
     condition = Q()
@@ -55,7 +64,7 @@ def current_runs(versions, rounds):
                        .values("sha256"))
     if not condition:
         return None
-    return QCRun.objects.filter(condition)
+    return with_decisions(QCRun.objects.filter(condition))
 
 
 def _weeks(rows, key):
@@ -89,16 +98,18 @@ NUMBERS_CACHE_S = 3600
 
 def data_signature(study, site_ids):
     """What the overview's numbers depend on, in three cheap aggregate queries: any new or
-    finished upload, new dataset version, new quality round or result changes it."""
+    finished upload, new dataset version, new quality round or result, or a person's
+    channel decision (which rewrites a result's verdict after decisions) changes it."""
     from django.db.models import Max
 
     uploads = Upload.objects.filter(study=study, site_id__in=site_ids).aggregate(
         n=Count("id"), last=Max("id"), finished=Max("finished_at"))
     versions = QCRound.objects.filter(version__study=study, version__site_id__in=site_ids
                                       ).aggregate(version=Max("version_id"), round=Max("id"))
-    runs = QCRun.objects.filter(site_id__in=site_ids).aggregate(last=Max("id"), n=Count("id"))
+    runs = QCRun.objects.filter(site_id__in=site_ids).aggregate(
+        last=Max("id"), n=Count("id"), decided=Max("effective__updated_at"))
     return (uploads["n"], uploads["last"], str(uploads["finished"]), versions["version"],
-            versions["round"], runs["last"], runs["n"])
+            versions["round"], runs["last"], runs["n"], str(runs["decided"]))
 
 
 def cached_study_numbers(study, site_ids, *, now):
@@ -130,11 +141,11 @@ def study_numbers(study, site_ids, *, now):
                 for sid in site_ids}
     verdict_weeks = {}
     if runs is not None:
-        for row in runs.values("site_id", "verdict").annotate(
-                n=Count("id"), bad=Sum("n_bad_channels"), chans=Sum("n_channels"),
+        for row in runs.values("site_id", "shown_verdict").annotate(
+                n=Count("id"), bad=Sum("shown_bad"), chans=Sum("n_channels"),
                 rejected=Sum("rejected_share")):
             site = per_site[row["site_id"]]
-            site["verdicts"][row["verdict"]] = row["n"]
+            site["verdicts"][row["shown_verdict"]] += row["n"]
             site["checked"] += row["n"]
             site["bad_channels"] += row["bad"] or 0
             site["channels"] += row["chans"] or 0
@@ -145,8 +156,8 @@ def study_numbers(study, site_ids, *, now):
             per_site[row["run__site_id"]]["channels_flagged"][row["channel"]] = (
                 row["flagged"], row["checked"])
         verdict_weeks = _weeks(runs.filter(created_at__gte=since_weeks(now)).annotate(
-            week=TruncWeek("created_at")).values("week", "verdict").annotate(n=Count("id")),
-            "verdict")
+            week=TruncWeek("created_at")).values("week", "shown_verdict").annotate(
+            n=Count("id")), "shown_verdict")
     for row in Block.objects.filter(recording__version__in=list(versions.values())).values(
             "recording__version__site_id", "level").annotate(n=Count("id")):
         per_site[row["recording__version__site_id"]]["levels"][row["level"] or "no rating"] = \
@@ -179,15 +190,16 @@ def study_numbers(study, site_ids, *, now):
 
 
 def needing_review(site, version, qc_round):
-    """The version's recordings whose current verdict is "review" or "fail", each with its
-    verdict and bad-channel count (a queryset, for pagination)."""
+    """The version's recordings whose current verdict (after people's channel decisions)
+    is "review" or "fail", each with its verdict and bad-channel count (a queryset, for
+    pagination)."""
     from portal.datasets.models import Recording
 
-    runs = QCRun.objects.filter(site=site, recording_sha256=OuterRef("sha256"),
-                                settings_digest=qc_round.settings_digest,
-                                code_version=qc_round.code_version)
+    runs = with_decisions(QCRun.objects.filter(
+        site=site, recording_sha256=OuterRef("sha256"), settings_digest=qc_round.settings_digest,
+        code_version=qc_round.code_version))
     return (Recording.objects.filter(version=version).select_related("participant")
-            .annotate(verdict=Subquery(runs.values("verdict")[:1]),
-                      n_bad=Subquery(runs.values("n_bad_channels")[:1]),
+            .annotate(verdict=Subquery(runs.values("shown_verdict")[:1]),
+                      n_bad=Subquery(runs.values("shown_bad")[:1]),
                       rejected=Subquery(runs.values("rejected_share")[:1]))
             .filter(verdict__in=["review", "fail"]))

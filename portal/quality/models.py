@@ -43,6 +43,25 @@ class QCRun(models.Model):
         return f"QC {self.recording_sha256[:10]} ({self.verdict})"
 
 
+class EffectiveVerdict(models.Model):
+    """A quality result's verdict and bad-channel count after people's channel decisions.
+
+    The result itself stays as the checks computed it (its hash is in the audit trail);
+    this row, written when someone decides on a channel of the recording, holds what pages
+    and the overview show. Without a row the checks' own verdict holds.
+    """
+
+    run = models.OneToOneField(QCRun, on_delete=models.CASCADE, primary_key=True,
+                               related_name="effective")
+    verdict = models.CharField(max_length=8, choices=Verdict.choices, db_index=True)
+    verdict_reasons = models.JSONField(default=list)
+    n_bad_channels = models.PositiveIntegerField(default=0)
+    updated_at = models.DateTimeField(default=timezone.now)
+
+    def __str__(self):
+        return f"{self.run} after decisions: {self.verdict}"
+
+
 class QCChannel(models.Model):
     """One channel of one quality result, good or bad by the checks: a plain table so that
     "how often is each channel flagged at each site" is one aggregate query."""

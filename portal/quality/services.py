@@ -4,10 +4,11 @@ import hashlib
 import json
 
 from django.db import transaction
+from django.utils import timezone
 
 from portal.audit.events import record
 from portal.jobs.services import enqueue
-from portal.quality.models import ChannelOverride, QCRound, QCRun
+from portal.quality.models import ChannelOverride, EffectiveVerdict, QCRound, QCRun, Verdict
 from portal.studies.models import current_protocol
 
 #: Bumped whenever the checks change what they compute; part of every result's identity.
@@ -102,19 +103,83 @@ def effective_channels(run, overrides):
     return out
 
 
+def decided_verdict(run, overrides):
+    """The verdict of ``run`` after people's decisions (``overrides``: {channel: override}),
+    by the checks' own rule (:func:`workers.qc.verdict.effective_verdict`): a dict with
+    verdict, its label, verdict_reasons, n_bad_channels, n_channels and bad_channels. The
+    stored result is not changed."""
+    from workers.qc.settings import QCSettings
+    from workers.qc.verdict import effective_verdict
+
+    decided = effective_verdict(run.result,
+                                {name: item.status for name, item in overrides.items()},
+                                settings=QCSettings.from_stored(run.settings))
+    return {**decided, "label": Verdict(decided["verdict"]).label}
+
+
+def shown_verdict(run):
+    """What pages show of a result: verdict, its label, bad-channel count and reasons after
+    people's decisions when there are any ("decided" True), else as the checks found
+    (reasons from the run's "reasons" annotation or its result)."""
+    try:
+        decided = run.effective
+    except EffectiveVerdict.DoesNotExist:
+        reasons = getattr(run, "reasons", None)
+        if reasons is None and "result" in run.__dict__:
+            reasons = run.result.get("verdict_reasons")
+        verdict, n_bad, decided = run.verdict, run.n_bad_channels, None
+    else:
+        verdict, n_bad, reasons = decided.verdict, decided.n_bad_channels, decided.verdict_reasons
+    return {"verdict": verdict, "label": Verdict(verdict).label, "n_bad_channels": n_bad,
+            "n_channels": run.n_channels, "reasons": reasons or [], "decided": decided is not None}
+
+
+def refresh_decided(site, recording_sha256, runs=None):
+    """Write, for every result of this recording file at ``site`` (or ``runs``), its
+    verdict after people's decisions; nothing when nobody decided. Returns one dict per
+    result: qc_run, settings_digest, code_version, before and after (verdict and bad-channel
+    count)."""
+    overrides = latest_overrides(site, recording_sha256)
+    if not overrides:
+        return []
+    if runs is None:
+        runs = QCRun.objects.filter(site=site, recording_sha256=recording_sha256)
+    changes = []
+    for run in runs:
+        row = EffectiveVerdict.objects.filter(run=run).first()
+        before = ({"verdict": row.verdict, "n_bad_channels": row.n_bad_channels} if row else
+                  {"verdict": run.verdict, "n_bad_channels": run.n_bad_channels})
+        decided = decided_verdict(run, overrides)
+        EffectiveVerdict.objects.update_or_create(run=run, defaults={
+            "verdict": decided["verdict"], "verdict_reasons": decided["verdict_reasons"],
+            "n_bad_channels": decided["n_bad_channels"], "updated_at": timezone.now()})
+        changes.append({"qc_run": run.pk, "settings_digest": run.settings_digest,
+                        "code_version": run.code_version, "before": before,
+                        "after": {"verdict": decided["verdict"],
+                                  "n_bad_channels": decided["n_bad_channels"]}})
+    return changes
+
+
 def set_override(*, site, recording, channel, status, reason, user):
+    """Store a person's decision on one channel and, in the same transaction, the verdict
+    after it of every quality result of the recording file; the audit event records each
+    result's verdict and bad-channel count before and after."""
     if channel not in recording.channel_names:
         raise ValueError(f"{recording.path} has no channel {channel!r}")
     if not reason.strip():
         raise ValueError("say why (the reason is kept in the audit trail)")
     with transaction.atomic():
+        runs = list(QCRun.objects.select_for_update().filter(
+            site=site, recording_sha256=recording.sha256).order_by("pk"))
         item = ChannelOverride.objects.create(
             site=site, recording_sha256=recording.sha256, channel=channel, status=status,
             reason=reason.strip()[:300], created_by=user,
         )
+        changes = refresh_decided(site, recording.sha256, runs=runs)
         record("qc.channel_override", actor=user, target=item, site=site,
                study=recording.version.study,
                summary=f"{channel} of {recording.path} set {status}: {reason.strip()[:120]}",
                params={"channel": channel, "status": status, "reason": reason.strip()},
-               inputs=[{"recording": recording.pk, "sha256": recording.sha256}])
+               inputs=[{"recording": recording.pk, "sha256": recording.sha256}],
+               outputs=changes)
     return item

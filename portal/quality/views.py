@@ -19,12 +19,14 @@ from portal.quality.derivatives import write_derivative
 from portal.quality.forms import OverrideForm, RerunForm
 from portal.quality.models import QCRound, QCRun, Verdict
 from portal.quality.services import (
+    decided_verdict,
     effective_channels,
     latest_overrides,
     progress,
     run_for,
     runs_query,
     set_override,
+    shown_verdict,
     start_round,
 )
 
@@ -83,18 +85,20 @@ def round_detail(request, round_id):
     version = qc_round.version
     from django.db.models.fields.json import KeyTransform
 
-    runs = {run.recording_sha256: run for run in runs_query(qc_round).defer(
-        "result", "settings").annotate(reasons=KeyTransform("verdict_reasons", "result"))}
+    runs = {run.recording_sha256: run for run in runs_query(qc_round).select_related(
+        "effective").defer("result", "settings").annotate(
+        reasons=KeyTransform("verdict_reasons", "result"))}
     rows = []
     for recording in version.recordings.select_related("participant"):
         run = runs.get(recording.sha256)
-        rows.append({"recording": recording, "run": run,
-                     "verdict": run.verdict if run else None})
+        shown = shown_verdict(run) if run else None
+        rows.append({"recording": recording, "run": run, "shown": shown,
+                     "verdict": shown["verdict"] if shown else None})
     sort = request.GET.get("sort", "verdict")
     if sort == "verdict":
         rows.sort(key=lambda r: (VERDICT_ORDER[r["verdict"]], r["recording"].path))
     elif sort == "bad":
-        rows.sort(key=lambda r: -(r["run"].n_bad_channels if r["run"] else -1))
+        rows.sort(key=lambda r: -(r["shown"]["n_bad_channels"] if r["shown"] else -1))
     else:
         rows.sort(key=lambda r: r["recording"].path)
     may_run = can(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
@@ -138,11 +142,12 @@ def recording_quality(request, round_id, recording_id):
     run = run_for(qc_round, recording)
     overrides = latest_overrides(site, recording.sha256)
     channels = effective_channels(run, overrides) if run else {}
+    decided = decided_verdict(run, overrides) if run else None
     may_override = can(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
     form = OverrideForm(channels=recording.channel_names) if may_override else None
     return render(request, "quality/recording.html", {
         "round": qc_round, "recording": recording, "run": run, "channels": channels,
-        "form": form, "overrides": overrides,
+        "decided": decided, "form": form, "overrides": overrides,
         "history": list(recording_overrides(site, recording.sha256)),
         **reproduce.page_context("qc", run, may_start=run is not None and may_override),
     })

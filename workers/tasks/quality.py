@@ -11,7 +11,7 @@ from portal.datasets import blobs
 from portal.datasets.models import Recording
 from portal.jobs.services import enqueue
 from portal.quality.models import QCChannel, QCRound, QCRun
-from portal.quality.services import runs_of
+from portal.quality.services import refresh_decided, runs_of
 
 DATA_SUFFIXES = {".edf", ".bdf", ".vhdr", ".vmrk", ".eeg", ".set", ".fdt"}
 
@@ -144,6 +144,7 @@ def run_recording(ctx):
         job.result = {"qc_run": run.pk, "verdict": run.verdict}
         if created:
             QCChannel.objects.bulk_create(QCChannel.rows_for(run))
+            refresh_decided(site, recording.sha256, runs=[run])
             record("qc.finished", target=run, site=site, study=recording.version.study,
                    worker=True, summary=f"{recording.path}: {run.verdict}, {n_bad} bad "
                    f"channel(s), {100 * run.rejected_share:.1f}% of time rejected",
