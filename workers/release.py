@@ -9,6 +9,7 @@ list of types the release declares, and the file's sha256 is checked first.
 
 import hashlib
 import json
+import os
 from pathlib import Path
 
 FORMAT = "cairn-release-1"
@@ -116,11 +117,14 @@ def features_for_recording(bids_file, spec, *, bad_channels=(), bad_segments=(),
     import mne_bids
     import pandas as pd
 
+    from workers.bids.recording import read_recording
     from workers.features.pipeline import recording_part
 
-    path = mne_bids.get_bids_path_from_fname(bids_file)
-    raw = mne_bids.read_raw_bids(path, verbose="ERROR")
-    raw.load_data(verbose="ERROR")
+    root = mne_bids.get_bids_path_from_fname(bids_file).root
+    if root is None:
+        raise ValueError(f"{bids_file}: not inside a BIDS dataset (sub-<label>/[ses-<label>/]"
+                         "eeg/); give the path of the data file in its dataset")
+    raw = read_recording(root, Path(os.path.relpath(bids_file, root)).as_posix())
     picks = mne.pick_types(raw.info, eeg=True, exclude=[])
     if power_line_hz is None:
         power_line_hz = raw.info.get("line_freq")

@@ -12,6 +12,7 @@ import os
 import re
 from pathlib import Path
 
+from .companions import CompanionError, companion_files
 from .headers import HeaderError, read_edf_header, read_fixed_edf_header, read_vhdr
 from .names import walk_dataset
 from .readers import read_json, read_tsv, split_tsv_line
@@ -165,12 +166,14 @@ def vmrk_findings(path, full_path):
 
 def header_files(root):
     """Every EDF, BDF and BrainVision header of the upload, including folders and files the
-    BIDS checks skip (sourcedata/, .bidsignore, hidden): they are stored all the same."""
+    BIDS checks skip (sourcedata/, .bidsignore, hidden): they are stored all the same.
+    Links are left out: they are never followed (validation refuses them)."""
     root = Path(root)
     found = []
     for folder, _, names in os.walk(root):
         for name in names:
-            if name.lower().endswith(HEADER_EXTENSIONS):
+            if (name.lower().endswith(HEADER_EXTENSIONS)
+                    and not os.path.islink(os.path.join(folder, name))):
                 found.append((Path(folder) / name).relative_to(root).as_posix())
     return sorted(found)
 
@@ -193,10 +196,14 @@ def header_findings(root, relpath):
         if full.suffix.lower() == ".vhdr" and size:
             header = read_vhdr(full)
             findings = vhdr_findings(relpath, header)
-            if header.marker_file:
-                marker = (full.parent / header.marker_file)
-                if marker.is_file():
-                    findings += vmrk_findings(marker.relative_to(root).as_posix(), marker)
+            try:
+                companions = companion_files(root, relpath)
+            except CompanionError:
+                return findings
+            for companion in companions:
+                marker = Path(root) / companion.path
+                if companion.key == "MarkerFile" and marker.is_file():
+                    findings += vmrk_findings(companion.path, marker)
             return findings
     except (HeaderError, OSError, ValueError):
         return []

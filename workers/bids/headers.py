@@ -3,14 +3,17 @@
 The hand-written readers catch what mne accepts silently (a truncated EDF is read as a
 shorter recording) and feed the de-identification checks; the recording's facts (sampling
 rate, channels, duration) come from ``mne_bids.read_raw_bids``, so that what Cairn accepts
-is what mne-bids reads.
+is what mne-bids reads. Names a header gives are followed only through
+:mod:`workers.bids.companions`, which keeps them inside the recording's folder.
 """
 
 import hashlib
 import re
-import warnings
 from dataclasses import dataclass
 from pathlib import Path
+
+from .companions import CompanionError, brainvision_text, companion_files
+from .report import RefusedFile
 
 CHUNK_BYTES = 1 << 20
 EDF_FIXED_HEADER_BYTES = 256
@@ -174,14 +177,16 @@ class BrainVisionHeader:
 
 
 def read_vhdr(path):
-    """Parse a BrainVision header (INI-like text); raises HeaderError."""
+    """Parse a BrainVision header (INI-like text, decoded as mne decodes it); raises
+    HeaderError. The file names it gives are not checked here: open them only through
+    :func:`workers.bids.companions.companion_files`."""
     try:
-        text = Path(path).read_bytes().decode("utf-8", errors="replace")
+        text = brainvision_text(Path(path).read_bytes())
     except OSError as exc:
         raise HeaderError(f"could not be opened ({exc.strerror or exc})") from None
     if not text.strip():
         raise HeaderError("is empty (0 bytes); upload the BrainVision header itself")
-    if not text.lstrip("\ufeff").startswith("Brain Vision Data Exchange Header File"):
+    if not text.startswith("Brain Vision Data Exchange Header File"):
         raise HeaderError("does not start like a BrainVision header ('Brain Vision Data "
                           "Exchange Header File ...'); export the recording again")
     section, values, comment = "", {}, []
@@ -208,31 +213,49 @@ def read_vhdr(path):
 
 
 def check_brainvision_structure(path):
-    """Problems of a BrainVision file set as ``(severity, field, message)`` triples."""
+    """Problems of a BrainVision file set as ``(severity, field, message)`` triples.
+
+    The files the header names are found through :func:`companion_files`, so a name
+    leading outside the header's folder is refused before anything is opened or measured.
+    """
     try:
         header = read_vhdr(path)
     except HeaderError as exc:
         return [("error", None, str(exc))]
+    folder, own = Path(path).parent, Path(path).name
+    try:
+        companions = companion_files(folder, own)
+    except CompanionError as exc:
+        return [("error", problem.field, problem.message) for problem in exc.problems]
+    named = {}
+    for companion in companions:
+        if companion.header == own:
+            named.setdefault(companion.key, companion)
+            if companion.name == (header.data_file if companion.key == "DataFile"
+                                  else header.marker_file):
+                named[companion.key] = companion
     problems = []
-    folder = Path(path).parent
-    for key, name in (("DataFile", header.data_file), ("MarkerFile", header.marker_file)):
-        if not name:
+    for key in ("DataFile", "MarkerFile"):
+        companion = named.get(key)
+        if companion is None:
             problems.append(("error", key, f"names no {key}; the header must name its "
                              f"{'.eeg' if key == 'DataFile' else '.vmrk'} file"))
-        elif not (folder / name).is_file():
-            problems.append(("error", key, f"names {key} {name!r}, which is not in the same "
-                             "folder; upload it or correct the name (renaming BrainVision "
-                             "files also needs the names inside .vhdr and .vmrk changed)"))
-    data_path = folder / header.data_file if header.data_file else None
+        elif not (folder / companion.path).is_file():
+            problems.append(("error", key, f"names {key} {companion.name!r}, which is not in "
+                             "the same folder; upload it or correct the name (renaming "
+                             "BrainVision files also needs the names inside .vhdr and .vmrk "
+                             "changed)"))
+    data = named.get("DataFile")
+    data_path = folder / data.path if data is not None else None
     width = BRAINVISION_SAMPLE_BYTES.get(header.binary_format)
     if data_path is not None and data_path.is_file() and header.n_channels and width:
         size = data_path.stat().st_size
         frame = header.n_channels * width
         if size == 0:
-            problems.append(("error", "DataFile", f"{header.data_file} is empty (0 bytes); "
+            problems.append(("error", "DataFile", f"{data.name} is empty (0 bytes); "
                              "upload the recording itself"))
         elif size % frame:
-            problems.append(("error", "DataFile", f"{header.data_file} holds {size} bytes, not "
+            problems.append(("error", "DataFile", f"{data.name} holds {size} bytes, not "
                              f"a whole number of samples of {header.n_channels} channels "
                              f"({frame} bytes each); the file is truncated or damaged"))
     return problems
@@ -247,23 +270,22 @@ class HeaderFacts:
     channel_names: list
 
 
-def read_with_mne_bids(root, path):
-    """Open a data file with ``mne_bids.read_raw_bids`` (header only, no data loaded).
+def read_with_mne_bids(root, path, *, table_limits=None):
+    """Open a data file with ``mne_bids.read_raw_bids`` (header only, no data loaded),
+    through :func:`workers.bids.recording.read_recording`.
 
     Channel-name mismatches with channels.tsv are left to Cairn's own checks, so they do
-    not stop the reading; any other reader failure raises HeaderError with the reader's
-    words.
+    not stop the reading. A companion file outside the recording's folder or a table past
+    its limit raises :class:`~workers.bids.report.RefusedFile` naming it; any other reader
+    failure raises HeaderError with the reader's words.
     """
-    import mne
-    import mne_bids
+    from .recording import read_recording
 
-    full = Path(root) / path
     try:
-        bids_path = mne_bids.get_bids_path_from_fname(full)
-        bids_path.update(root=Path(root))
-        with warnings.catch_warnings(), mne.utils.use_log_level("ERROR"):
-            warnings.simplefilter("ignore")
-            raw = mne_bids.read_raw_bids(bids_path, on_ch_mismatch="warn", verbose="ERROR")
+        raw = read_recording(root, path, preload=False, on_ch_mismatch="warn",
+                             table_limits=table_limits)
+    except RefusedFile:
+        raise
     except Exception as exc:  # the reader's own words say what it could not read
         raise HeaderError(f"{type(exc).__name__}: {exc}") from None
     sfreq_hz = float(raw.info["sfreq"])

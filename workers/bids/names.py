@@ -316,20 +316,26 @@ class BidsIgnore:
 
 @dataclass
 class DatasetFiles:
-    """Files of a dataset the checks look at, and what was left out and why."""
+    """Files of a dataset the checks look at, and what was left out and why.
+
+    ``links`` are symbolic links (to files or folders): they are never followed, because
+    they can lead outside the dataset, and are not among ``files``.
+    """
 
     files: list
     ignored: list
     opaque_folders: list
     unknown_folders: list
+    links: list = field(default_factory=list)
 
 
 def walk_dataset(root):
     """Relative POSIX paths of the dataset's files, leaving out hidden files, the folders the
-    standard does not describe (code/, sourcedata/, derivatives/, ...) and ``.bidsignore``."""
+    standard does not describe (code/, sourcedata/, derivatives/, ...), ``.bidsignore`` and
+    symbolic links (listed apart)."""
     root = Path(root)
     ignore = BidsIgnore.from_root(root)
-    files, ignored, opaque, unknown = [], [], [], []
+    files, ignored, opaque, unknown, links = [], [], [], [], []
     for dirpath, dirnames, filenames in os.walk(root):
         relative_dir = Path(dirpath).relative_to(root).as_posix()
         relative_dir = "" if relative_dir == "." else relative_dir + "/"
@@ -338,7 +344,9 @@ def walk_dataset(root):
             relative = relative_dir + name
             if name.startswith("."):
                 continue
-            if not relative_dir and name in schema.opaque_folders():
+            if os.path.islink(os.path.join(dirpath, name)):
+                links.append(relative + "/")
+            elif not relative_dir and name in schema.opaque_folders():
                 opaque.append(relative)
             elif ignore.ignores(relative + "/") or ignore.ignores(relative):
                 ignored.append(relative + "/")
@@ -351,5 +359,9 @@ def walk_dataset(root):
             if name.startswith("."):
                 continue
             relative = relative_dir + name
-            (ignored if ignore.ignores(relative) else files).append(relative)
-    return DatasetFiles(sorted(files), sorted(ignored), sorted(opaque), sorted(unknown))
+            if os.path.islink(os.path.join(dirpath, name)):
+                links.append(relative)
+            else:
+                (ignored if ignore.ignores(relative) else files).append(relative)
+    return DatasetFiles(sorted(files), sorted(ignored), sorted(opaque), sorted(unknown),
+                        sorted(links))

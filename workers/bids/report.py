@@ -19,6 +19,15 @@ class Problem:
     code: str = ""
 
 
+class RefusedFile(ValueError):
+    """A file Cairn will not read (or follow); ``problems`` name the file, line and field,
+    and say what to do."""
+
+    def __init__(self, problems):
+        self.problems = list(problems)
+        super().__init__("; ".join(f"{p.path}: {p.message}" for p in self.problems))
+
+
 @dataclass
 class Finding:
     """Something in a file that may identify a person or date a recording.

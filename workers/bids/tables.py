@@ -9,8 +9,8 @@ import re
 from dataclasses import dataclass
 
 from . import schema
+from .channel_types import MISSING, type_for_unknown
 
-MISSING = "n/a"
 COMMON_TYPES = frozenset({"EEG", "EOG", "ECG", "EMG", "MISC", "TRIG", "REF"})
 
 
@@ -95,7 +95,11 @@ class Channel:
 
 def check_channels(tree, report, path):
     """Check a channels.tsv; return its named channels, or None when it cannot be compared
-    with a data file (no header, wrong columns, or rows that could not be read)."""
+    with a data file (no header, wrong columns, or rows that could not be read).
+
+    A type of n/a (BIDS allows n/a in any cell) is a warning, and the channel gets the type
+    :func:`~workers.bids.channel_types.type_for_unknown` gives it (EEG or MISC).
+    """
     table = tree.table(path)
     tree.take_problems(report, table)
     if not table.readable:
@@ -105,7 +109,7 @@ def check_channels(tree, report, path):
         return None
     types = schema.column_enum("type__channels")
     statuses = schema.column_enum("status")
-    channels, seen, spaced = [], {}, []
+    channels, seen, spaced, unknown = [], {}, [], []
     for line, row in table.rows:
         name = row["name"]
         if not name.strip() or name == MISSING:
@@ -121,7 +125,10 @@ def check_channels(tree, report, path):
             continue
         seen[name.strip()] = line
         kind = row["type"]
-        if kind not in types:
+        if kind.strip() == MISSING:
+            kind = type_for_unknown(name)
+            unknown.append((line, name.strip()))
+        elif kind not in types:
             hint = (f"write it in capitals ({kind.upper()})" if kind.upper() in types
                     else f"use one of {', '.join(sorted(set(types) & COMMON_TYPES))} or "
                     "another type the BIDS standard lists")
@@ -139,12 +146,35 @@ def check_channels(tree, report, path):
             report.error(path, "status_description is empty; write a reason or n/a",
                          line=line, field="status_description", code="channels.empty_value")
         channels.append(Channel(name.strip(), kind, status, line))
+    if unknown:
+        _warn_unknown_types(report, path, unknown)
     if spaced:
         line, name = spaced[0]
         report.warn(path, f"{len(spaced)} channel name(s) have spaces around them (first "
                     f"{name!r}); they are compared with the data file without the spaces, "
                     "but remove them", line=line, field="name", code="channels.name_spaces")
     return None if table.unread_rows else channels
+
+
+def _names(names, *, shown=6):
+    more = f" and {len(names) - shown} more" if len(names) > shown else ""
+    return ", ".join(names[:shown]) + more
+
+
+def _warn_unknown_types(report, path, unknown):
+    """One warning per table for channels of type n/a, saying what each is treated as."""
+    as_eeg = [name for _, name in unknown if type_for_unknown(name) == "EEG"]
+    as_misc = [name for _, name in unknown if type_for_unknown(name) != "EEG"]
+    treated = []
+    if as_eeg:
+        treated.append(f"{_names(as_eeg)} are treated as EEG, being 10-20 electrode names")
+    if as_misc:
+        treated.append(f"{_names(as_misc)} are treated as MISC (left out of EEG quality "
+                       "checks and features), not being 10-20 electrode names")
+    report.warn(path, f"{len(unknown)} channel(s) have type n/a, so their type is unknown "
+                f"(first on line {unknown[0][0]}): {'; '.join(treated)}. Write each "
+                "channel's type where you know it", line=unknown[0][0], field="type",
+                code="channels.unknown_type")
 
 
 @dataclass
@@ -156,7 +186,11 @@ class Event:
 
 
 def check_events(tree, report, path):
-    """Check an events.tsv; return its events (rows with problems left out) or None."""
+    """Check an events.tsv; return its events (rows with problems left out) or None.
+
+    An onset of n/a (BIDS allows n/a in any cell) is a warning; the event is left out, as
+    mne-bids leaves it out of the recording's annotations.
+    """
     table = tree.table(path)
     tree.take_problems(report, table)
     if not table.readable:
@@ -164,9 +198,12 @@ def check_events(tree, report, path):
     initial, _ = schema.table_rule("events", "Events")
     if not _initial_columns(table, report, initial=initial, what="events.tsv"):
         return None
-    events = []
+    events, unknown_onsets = [], []
     for line, row in table.rows:
         onset = as_number(row["onset"])
+        if onset is None and row["onset"].strip() == MISSING:
+            unknown_onsets.append(line)
+            continue
         if onset is None:
             report.error(path, f"onset {row['onset']!r} is not a number; write the event's "
                          "start in seconds from the beginning of the recording", line=line,
@@ -188,6 +225,12 @@ def check_events(tree, report, path):
                          line=line, field="trial_type", code="events.empty_value")
             continue
         events.append(Event(onset, duration, trial_type, line))
+    if unknown_onsets:
+        report.warn(path, f"{len(unknown_onsets)} event(s) have onset n/a, so when they "
+                    f"happened is unknown (first on line {unknown_onsets[0]}); they are left "
+                    "out of the checks and of workload blocks. Write the onset in seconds "
+                    "where you know it", line=unknown_onsets[0], field="onset",
+                    code="events.unknown_onset")
     return events
 
 

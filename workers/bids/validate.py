@@ -13,6 +13,7 @@ from pathlib import Path
 
 from . import deid as deid_checks
 from . import schema
+from .companions import CompanionError, companion_files
 from .headers import (
     HeaderError,
     HeaderFacts,
@@ -31,7 +32,7 @@ from .ratings import (
     read_rating,
     row_matches,
 )
-from .report import BlockInfo, Finding, Problem, RecordingInfo, Report
+from .report import BlockInfo, Finding, Problem, RecordingInfo, RefusedFile, Report
 from .sidecars import Tree
 from .tables import check_channels, check_events, check_participants, check_scans
 
@@ -71,8 +72,9 @@ class _Context:
     """State shared by the per-recording checks of one run."""
 
     def __init__(self, *, root, tree, report, settings, scale, read_data, known,
-                 duration_tolerance_s, sfreq_tolerance_hz):
+                 duration_tolerance_s, sfreq_tolerance_hz, table_limits=None):
         self.root = root
+        self.table_limits = table_limits
         self.tree = tree
         self.report = report
         self.settings = settings
@@ -102,6 +104,10 @@ def eeg_data_files(root):
 
 
 def _report_names(report, checks, listing):
+    for link in listing.links:
+        report.error(link, "is a symbolic link; Cairn does not follow links, because they can "
+                     "lead outside the dataset. Replace it with a copy of the file or folder",
+                     code="layout.link")
     for folder in listing.unknown_folders:
         report.warn(folder + "/", "this folder is not part of the BIDS layout and was not "
                     "checked; move it to sourcedata/ or derivatives/, or list it in "
@@ -241,8 +247,17 @@ def _number(value):
 
 
 def _header_problems(ctx, data):
-    """Structure problems of the data file itself; True when it is fit to be opened."""
+    """Structure problems of the data file itself; True when it is fit to be opened.
+
+    The files its header names come first: a name leading outside the recording's folder
+    is reported on its header line, and then nothing the header names is opened.
+    """
     full = ctx.root / data.path
+    try:
+        companion_files(ctx.root, data.path)
+    except CompanionError as exc:
+        ctx.report.errors.extend(exc.problems)
+        return False
     fit = True
     if data.extension in (".edf", ".bdf"):
         for severity, message in check_edf_structure(full):
@@ -276,7 +291,13 @@ def _facts(ctx, data, sha256, *, metadata_trouble):
     if not ctx.read_data:
         return None
     try:
-        return read_with_mne_bids(ctx.root, data.path)
+        return read_with_mne_bids(ctx.root, data.path, table_limits=ctx.table_limits)
+    except RefusedFile as exc:
+        for problem in exc.problems:
+            if not any((error.path, error.code) == (problem.path, problem.code)
+                       for error in ctx.report.errors):
+                ctx.report.errors.append(problem)
+        return None
     except HeaderError as exc:
         advice = ("fix the problems reported for its sidecars and tables first"
                   if metadata_trouble else
@@ -566,7 +587,7 @@ def _findings_to_problems(report, deid):
 
 def validate_dataset(root, *, ratings=None, scale=None, on_file=None, deid="refuse",
                      read_data=True, known=None, duration_tolerance_s=1.0,
-                     sfreq_tolerance_hz=0.01):
+                     sfreq_tolerance_hz=0.01, table_limits=None):
     """Check a BIDS EEG dataset folder; return a :class:`Report`.
 
     Parameters
@@ -595,6 +616,10 @@ def validate_dataset(root, *, ratings=None, scale=None, on_file=None, deid="refu
         ignored).
     duration_tolerance_s, sfreq_tolerance_hz : float
         Allowed difference between sidecar and data file.
+    table_limits : dict | None
+        ``{kind: TableLimit(max_rows, max_size_bytes)}`` replacing the limits of
+        :data:`workers.bids.limits.TABLE_LIMITS` for those kinds of table (channels,
+        events, participants, ...); a table past its limit is refused before it is parsed.
     """
     if deid not in DEID_MODES:
         raise ValueError(f"deid must be one of {DEID_MODES}, got {deid!r}")
@@ -609,7 +634,7 @@ def validate_dataset(root, *, ratings=None, scale=None, on_file=None, deid="refu
     listing = walk_dataset(root)
     checks = [check_path(path) for path in listing.files]
     _report_names(report, checks, listing)
-    tree = Tree(root, checks)
+    tree = Tree(root, checks, table_limits=table_limits)
     _check_description(tree, report)
     _check_readme(tree, report)
     folders = _subject_folders(root, listing)
@@ -622,7 +647,7 @@ def validate_dataset(root, *, ratings=None, scale=None, on_file=None, deid="refu
     ctx = _Context(root=root, tree=tree, report=report, settings=settings, scale=scale,
                    read_data=read_data, known=known or {},
                    duration_tolerance_s=duration_tolerance_s,
-                   sfreq_tolerance_hz=sfreq_tolerance_hz)
+                   sfreq_tolerance_hz=sfreq_tolerance_hz, table_limits=table_limits)
     scans = {}
     for check in checks:
         if not (check.ok and check.extension == ".tsv" and check.suffix in ("scans",

@@ -92,16 +92,17 @@ def materialised(recording):
 
 
 def read_raw(root, recording):
-    """The recording as an mne Raw with its data loaded (BIDS sidecars applied)."""
-    import mne
-    import mne_bids
+    """The recording as an mne Raw with its data loaded (BIDS sidecars applied), read by
+    :func:`workers.bids.recording.read_recording`; a header naming a file outside its
+    folder, or a table past its limit, stops the job with words."""
+    from portal.jobs.services import JobError
+    from workers.bids.recording import read_recording
+    from workers.bids.report import RefusedFile
 
-    bids_path = mne_bids.get_bids_path_from_fname(root / recording.path)
-    bids_path.root = root
-    with mne.utils.use_log_level("ERROR"):
-        raw = mne_bids.read_raw_bids(bids_path, verbose="ERROR")
-        raw.load_data()
-    return raw
+    try:
+        return read_recording(root, recording.path)
+    except RefusedFile as exc:
+        raise JobError(str(exc)) from None
 
 
 def compute_qc(recording, qc_settings):
