@@ -129,3 +129,48 @@ def test_pybids_sees_what_cairn_sees(name):
     """pybids' ``BIDSLayout(validate=False)`` finds the same participants, sessions, tasks,
     runs and EEG data files with the same entities (pybids 0.22; bids-examples)."""
     assert pybids_agreement(EXAMPLES / name) == []
+
+
+NA_COLUMNS = ("type", "units", "sampling_frequency", "low_cutoff", "high_cutoff", "notch")
+
+
+def _copy_writable(source, target):
+    """A copy of a (read-only) example that the test may edit."""
+    import os
+    import shutil
+
+    shutil.copytree(source, target, copy_function=shutil.copyfile)
+    for folder, _, _ in os.walk(target):
+        os.chmod(folder, 0o755)
+    return target
+
+
+def test_cbm_with_every_channel_cell_unknown_is_accepted(tmp_path):
+    """BIDS allows n/a in any table cell (BIDS specification, common principles, tabular
+    files; from memory). eeg_cbm (bids-examples, CC-BY 4.0) with the type, units,
+    sampling_frequency, low_cutoff, high_cutoff and notch of every channel written n/a is
+    accepted: no error (1,160 channels.bad_type errors before issue 14 was fixed), and one
+    warning per channels.tsv saying that its 58 channels, all 10-10 electrode names, are
+    treated as EEG."""
+    root = _copy_writable(EXAMPLES / "eeg_cbm", tmp_path / "eeg_cbm")
+    tables = sorted(root.rglob("*_channels.tsv"))
+    assert len(tables) == 20
+    for path in tables:
+        lines = path.read_text(encoding="utf-8").split("\n")
+        header = lines[0].split("\t")
+        assert set(NA_COLUMNS) <= set(header)
+        path.write_text("\n".join([lines[0]] + [
+            "\t".join("n/a" if column in NA_COLUMNS else value
+                      for column, value in zip(header, line.split("\t"), strict=True))
+            if line else line for line in lines[1:]]), encoding="utf-8")
+    report = validate_dataset(root, read_data=False)
+    assert report.errors == []
+    unknown = [w for w in report.warnings if w.code == "channels.unknown_type"]
+    assert sorted(w.path for w in unknown) == sorted(
+        p.relative_to(root).as_posix() for p in tables)
+    for warning in unknown:
+        assert (warning.line, warning.field) == (2, "type")
+        assert warning.message.startswith("58 channel(s) have type n/a")
+        assert "are treated as EEG" in warning.message and "MISC" not in warning.message
+    assert {w.code for w in report.warnings} <= LEGITIMATE_WARNINGS["eeg_cbm"] | {
+        "channels.unknown_type"}
