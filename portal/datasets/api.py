@@ -54,6 +54,8 @@ def upload_json(upload):
     if upload.state == UploadState.RECEIVING:
         out.update(size=upload.expected_bytes, received=upload.received,
                    missing=missing_ranges(upload))
+    if upload.state == UploadState.FAILED:
+        out.update(failure=upload.failure, next_step=upload.next_step)
     return out
 
 

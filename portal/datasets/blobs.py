@@ -1,5 +1,11 @@
-"""Content-addressed blob storage: a file is kept once under its sha256, written atomically."""
+"""Content-addressed blob storage: a file is kept once under its sha256, written atomically.
 
+A blob appears under its final name only when it is whole. A full disk (or an exhausted
+quota) is reported as ``StorageFull``, with the half-written temporary file removed.
+"""
+
+import contextlib
+import errno
 import hashlib
 import io
 import os
@@ -9,7 +15,33 @@ from pathlib import Path
 
 from django.conf import settings
 
+from portal.jobs.services import JobError
+
 CHUNK_BYTES = 1024 * 1024
+
+#: errno values of a full disk or an exhausted quota.
+FULL_ERRNOS = (errno.ENOSPC, errno.EDQUOT)
+
+
+class StorageFull(JobError):
+    """The blob store (or the staging disk) has no room left; an operator has to free space."""
+
+    def __init__(self, what, reason):
+        super().__init__(f"storage full: {reason} while {what}. Ask an operator to free space, "
+                         "then run it again")
+        self.what = what
+        self.reason = reason
+
+
+@contextlib.contextmanager
+def storage_errors(what):
+    """Turn a full disk met while doing ``what`` into StorageFull; other errors pass."""
+    try:
+        yield
+    except OSError as exc:
+        if exc.errno not in FULL_ERRNOS:
+            raise
+        raise StorageFull(what, os.strerror(exc.errno).lower()) from exc
 
 
 def blob_path(sha256):
@@ -30,25 +62,33 @@ def hash_stream(stream, sink=None):
     return digest.hexdigest(), size
 
 
+def _incoming(root):
+    """A new temporary file in the store: (its path, the file open for writing)."""
+    fd, tmp = tempfile.mkstemp(dir=root, prefix=".incoming-")
+    return tmp, os.fdopen(fd, "wb")
+
+
 def put_stream(stream):
     """Store a stream as a blob; returns (sha256, size). The same content is stored once."""
     root = Path(settings.BLOB_ROOT)
-    root.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=root, prefix=".incoming-")
+    tmp = None
     try:
-        with os.fdopen(fd, "wb") as sink:
-            sha256, size = hash_stream(stream, sink)
-            sink.flush()
-            os.fsync(sink.fileno())
-        target = blob_path(sha256)
-        if target.exists():
-            os.unlink(tmp)
-        else:
-            target.parent.mkdir(parents=True, exist_ok=True)
-            os.replace(tmp, target)
-            target.chmod(0o444)
+        with storage_errors("writing a file into the blob store"):
+            root.mkdir(parents=True, exist_ok=True)
+            tmp, sink = _incoming(root)
+            with sink:
+                sha256, size = hash_stream(stream, sink)
+                sink.flush()
+                os.fsync(sink.fileno())
+            target = blob_path(sha256)
+            if target.exists():
+                os.unlink(tmp)
+            else:
+                target.parent.mkdir(parents=True, exist_ok=True)
+                os.replace(tmp, target)
+                target.chmod(0o444)
     except BaseException:
-        if os.path.exists(tmp):
+        if tmp is not None and os.path.exists(tmp):
             os.unlink(tmp)
         raise
     return sha256, size
@@ -64,6 +104,17 @@ def file_sha256(path):
         return hash_stream(stream)[0]
 
 
+def _move(source, target):
+    """Rename ``source`` to ``target``; False when they lie on different file systems."""
+    try:
+        os.replace(source, target)
+    except OSError as exc:
+        if exc.errno == errno.EXDEV:
+            return False
+        raise
+    return True
+
+
 def adopt_file(path):
     """Store a file that may be consumed (a freshly unpacked upload): it is moved into the
     store, not copied, when it lies on the same disk. Returns (sha256, size)."""
@@ -74,10 +125,10 @@ def adopt_file(path):
     if target.exists():
         path.unlink()
         return sha256, size
-    target.parent.mkdir(parents=True, exist_ok=True)
-    try:
-        os.replace(path, target)
-    except OSError:  # another disk: copy instead
+    with storage_errors("moving a file into the blob store"):
+        target.parent.mkdir(parents=True, exist_ok=True)
+        moved = _move(path, target)
+    if not moved:  # another disk: copy instead
         with open(path, "rb") as stream:
             put_stream(stream)
         path.unlink()

@@ -16,6 +16,11 @@ class UploadState(models.TextChoices):
     VALIDATING = "validating", "validating"
     ACCEPTED = "accepted", "accepted"
     REJECTED = "rejected", "rejected"
+    FAILED = "failed", "failed"
+
+
+#: States an upload never leaves.
+FINAL_UPLOAD_STATES = (UploadState.ACCEPTED, UploadState.REJECTED, UploadState.FAILED)
 
 
 class Upload(models.Model):
@@ -36,8 +41,17 @@ class Upload(models.Model):
     )
     archive_sha256 = models.CharField(max_length=64, blank=True)
     archive_bytes = models.BigIntegerField(default=0)
+    last_chunk_at = models.DateTimeField(
+        null=True, blank=True, help_text="When the last chunk arrived (resumable uploads)."
+    )
     errors = models.JSONField(default=list, blank=True)
     warnings = models.JSONField(default=list, blank=True)
+    failure = models.TextField(
+        blank=True, help_text="Why the upload could not be checked (state failed)."
+    )
+    next_step = models.CharField(
+        max_length=300, blank=True, help_text="What a person can do about the failure."
+    )
     created_by = models.ForeignKey(
         settings.AUTH_USER_MODEL, null=True, blank=True, on_delete=models.SET_NULL,
         related_name="+",
@@ -50,6 +64,10 @@ class Upload(models.Model):
 
     def __str__(self):
         return f"upload {self.pk} from {self.site.slug} ({self.state})"
+
+    @property
+    def is_final(self):
+        return self.state in FINAL_UPLOAD_STATES
 
     @property
     def received_bytes(self):

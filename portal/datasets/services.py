@@ -10,14 +10,18 @@ import os
 import tarfile
 import tempfile
 import uuid
+from datetime import timedelta
 from pathlib import Path, PurePosixPath
 
 from django.conf import settings
 from django.db import transaction
+from django.db.models import Q
 from django.utils import timezone
 
+from portal.accounts.models import Site
 from portal.accounts.permissions import Action, require
 from portal.audit.events import record
+from portal.datasets.blobs import FULL_ERRNOS
 from portal.datasets.models import DatasetVersion, Upload, UploadMode, UploadState
 from portal.jobs.services import enqueue
 from workers.archive import ArchiveError, pack_folder
@@ -191,19 +195,43 @@ def pack_staged_files(pieces):
 
 # --- resumable uploads in chunks (the API) -------------------------------------------------
 
+#: Upload states whose archive still sits in staging and counts against the site's quota.
+STAGED_STATES = (UploadState.RECEIVING, UploadState.QUEUED, UploadState.VALIDATING)
+
+def staged_bytes(site):
+    """Bytes of ``site``'s uploads still in staging: announced sizes of those receiving,
+    archive sizes of those waiting or being validated."""
+    total = 0
+    for state, announced, archive in Upload.objects.filter(
+            site=site, state__in=STAGED_STATES).values_list(
+            "state", "expected_bytes", "archive_bytes"):
+        total += (announced or 0) if state == UploadState.RECEIVING else archive
+    return total
+
+
 def start_chunked(*, site, study, user, mode, label, expected_bytes, token=None):
     """Open an upload that will arrive in chunks; returns the Upload in state 'receiving'."""
     _check_target(user, site, study, mode)
-    if not isinstance(expected_bytes, int) or expected_bytes <= 0:
-        raise UploadError("size must be the archive's length in bytes (a whole number > 0)",
-                          field="size")
+    if isinstance(expected_bytes, bool) or not isinstance(expected_bytes, int) \
+            or expected_bytes <= 0:
+        raise UploadError(f"size must be the archive's length in bytes (a whole number > 0), "
+                          f"got {expected_bytes!r}", field="size")
     limit = settings.UPLOAD_MAX_BYTES
     if expected_bytes > limit:
         raise UploadError(f"size {expected_bytes} bytes is above the limit of {limit} bytes",
                           field="size")
     name = new_staging_name()
-    (staging_root() / name).touch()
     with transaction.atomic():
+        Site.objects.select_for_update().filter(pk=site.pk).first()  # one quota check at a time
+        in_use = staged_bytes(site)
+        quota = settings.SITE_STAGING_QUOTA_BYTES
+        if in_use + expected_bytes > quota:
+            raise UploadError(
+                f"site {site.slug} already has {in_use} bytes in uploads still receiving, "
+                f"waiting or being validated; {expected_bytes} more would pass its staging "
+                f"quota of {quota} bytes. Finish or wait for those uploads, or ask an operator "
+                "to raise CAIRN_SITE_STAGING_QUOTA_BYTES", field="size",
+            )
         upload = Upload.objects.create(
             site=site, study=study, mode=mode, source="api", label=label[:200],
             staging_name=name, expected_bytes=expected_bytes, created_by=user,
@@ -211,6 +239,7 @@ def start_chunked(*, site, study, user, mode, label, expected_bytes, token=None)
         record("upload.started", actor=user, token=token, site=site, study=study,
                target=upload, summary=f"{label} ({expected_bytes} bytes) announced",
                params={"mode": mode, "expected_bytes": expected_bytes})
+        (staging_root() / name).touch()
     return upload
 
 
@@ -225,35 +254,68 @@ def merge_ranges(ranges, start, end):
     return merged
 
 
+def _check_chunk(upload, offset, length):
+    if upload.state != UploadState.RECEIVING:
+        raise UploadError(f"upload {upload.pk} is {upload.get_state_display()}: it takes no "
+                          "more chunks", field="state")
+    if offset + length > upload.expected_bytes:
+        raise UploadError(
+            f"chunk ends at byte {offset + length}, past the announced size "
+            f"{upload.expected_bytes}", field="offset",
+        )
+
+
+def _copy(source, sink, length):
+    """Copy up to ``length`` bytes from ``source`` to ``sink`` in pieces; returns the count."""
+    copied = 0
+    while copied < length:
+        data = source.read(min(CHUNK_BYTES, length - copied))
+        if not data:
+            break
+        sink.write(data)
+        copied += len(data)
+    return copied
+
+
 def write_chunk(upload_id, *, offset, stream, length):
     """Write ``length`` bytes from ``stream`` at ``offset``. Repeated chunks overwrite the same
-    bytes; chunks may come in any order. Returns the upload with its received ranges."""
+    bytes; chunks may come in any order. Returns the upload with its received ranges.
+
+    The body is received into a piece file of its own with no transaction open, however slow
+    the sender; then a short transaction locks the upload, checks it still takes chunks, copies
+    the piece into the archive and records the range.
+    """
     if offset < 0 or length < 0:
         raise UploadError("offset and length must not be negative", field="offset")
-    with transaction.atomic():
-        upload = Upload.objects.select_for_update().get(pk=upload_id)
-        if upload.state != UploadState.RECEIVING:
-            raise UploadError(f"upload {upload.pk} is {upload.get_state_display()}: it takes no "
-                              "more chunks", field="state")
-        if offset + length > upload.expected_bytes:
+    upload = Upload.objects.get(pk=upload_id)
+    _check_chunk(upload, offset, length)
+    piece = staging_root() / f"{upload.staging_name}.chunk-{uuid.uuid4().hex}"
+    try:
+        with open(piece, "w+b") as held:
+            written = _copy(stream, held, length)
+            if written != length:
+                raise UploadError(f"chunk at offset {offset} ended after {written} of {length} "
+                                  "bytes; send it again", field="length")
+            held.flush()
+            with transaction.atomic():
+                upload = Upload.objects.select_for_update().get(pk=upload_id)
+                _check_chunk(upload, offset, length)
+                held.seek(0)
+                with open(staging_path(upload), "r+b") as sink:
+                    sink.seek(offset)
+                    _copy(held, sink, length)
+                upload.received = merge_ranges(upload.received, offset, offset + length)
+                upload.last_chunk_at = timezone.now()
+                upload.save(update_fields=["received", "last_chunk_at"])
+    except OSError as exc:
+        if exc.errno in FULL_ERRNOS:
             raise UploadError(
-                f"chunk ends at byte {offset + length}, past the announced size "
-                f"{upload.expected_bytes}", field="offset",
-            )
-        written = 0
-        with open(staging_path(upload), "r+b") as sink:
-            sink.seek(offset)
-            while written < length:
-                chunk = stream.read(min(CHUNK_BYTES, length - written))
-                if not chunk:
-                    break
-                sink.write(chunk)
-                written += len(chunk)
-        if written != length:
-            raise UploadError(f"chunk at offset {offset} ended after {written} of {length} "
-                              "bytes; send it again", field="length")
-        upload.received = merge_ranges(upload.received, offset, offset + length)
-        upload.save(update_fields=["received"])
+                f"the server's staging space is full; the chunk at offset {offset} was not "
+                "kept. Ask an operator to free space, then send it again", field="storage",
+            ) from exc
+        raise
+    finally:
+        piece.unlink(missing_ok=True)
     return upload
 
 
@@ -326,6 +388,82 @@ def discard_staging_on_commit(upload):
     transaction.on_commit(lambda: path.unlink(missing_ok=True))
 
 
-def temporary_dir():
-    """A work folder beside staging (same disk, so moves are cheap); caller removes it."""
-    return tempfile.TemporaryDirectory(prefix="work-", dir=staging_root())
+def temporary_dir(job=None, token=""):
+    """A work folder beside staging (same disk, so moves are cheap); caller removes it.
+
+    Its name carries the job and claim token that use it, so ``collect_blobs`` can tell the
+    folder of a running validation from one a killed worker left behind.
+    """
+    owner = f"job{job.pk}-{token}-" if job is not None and token else ""
+    return tempfile.TemporaryDirectory(prefix=f"work-{owner}", dir=staging_root())
+
+
+# --- uploads that could not be checked ------------------------------------------------------
+
+def _next_step(cause, job_id):
+    if cause == "error":
+        return "Send the dataset again once the problem above is dealt with."
+    what = {
+        "lost": "its worker stopped each time (crash, out of memory or restart)",
+        "transient": "the database could not be reached reliably",
+    }.get(cause, "this is a fault in Cairn, not in your data")
+    return f"Ask an operator to look at job {job_id} ({what}); then send the dataset again."
+
+
+def _mark_failed(upload, *, failure, next_step, params):
+    upload.state = UploadState.FAILED
+    upload.failure = failure
+    upload.next_step = next_step[:300]
+    upload.finished_at = timezone.now()
+    upload.save(update_fields=["state", "failure", "next_step", "finished_at"])
+    record("upload.failed", target=upload, site=upload.site, study=upload.study, worker=True,
+           summary=f"upload {upload.pk} failed: {failure[:200]}", params=params,
+           inputs=[{"upload": upload.pk, "sha256": upload.archive_sha256}])
+
+
+def validation_failed(job, cause):
+    """Failure hook of the upload.validate job (``portal.jobs.kinds``): its upload ends
+    "failed" with the job's message and a next step. Runs inside the transaction that fails
+    the job; does nothing to an upload already accepted, rejected or failed. The staged
+    archive stays until ``collect_blobs`` removes it after its grace period."""
+    if job.target_type != "datasets.upload":
+        return False
+    with transaction.atomic():
+        upload = Upload.objects.select_for_update().select_related("site", "study").filter(
+            pk=job.target_id).first()
+        if upload is None or upload.is_final:
+            return False
+        _mark_failed(upload, failure=job.error, next_step=_next_step(cause, job.pk),
+                     params={"job": job.pk, "cause": cause})
+    return True
+
+
+def expire_abandoned(now=None, *, dry_run=False):
+    """Fail resumable uploads that received no chunk for ``UPLOAD_ABANDONED_AFTER_S`` and
+    remove their staged bytes. Returns, for each upload ended (or that would be), its id, its
+    staging file and that file's bytes."""
+    now = now or timezone.now()
+    after_s = settings.UPLOAD_ABANDONED_AFTER_S
+    cutoff = now - timedelta(seconds=after_s)
+    stale = Upload.objects.filter(state=UploadState.RECEIVING).filter(
+        Q(last_chunk_at__lt=cutoff) | Q(last_chunk_at__isnull=True, created_at__lt=cutoff))
+    ended = []
+    for upload_id in stale.values_list("pk", flat=True):
+        with transaction.atomic():
+            upload = Upload.objects.select_for_update().select_related("site", "study").get(
+                pk=upload_id)
+            last = upload.last_chunk_at or upload.created_at
+            if upload.state != UploadState.RECEIVING or last >= cutoff:
+                continue  # a chunk arrived meanwhile
+            path = staging_path(upload)
+            ended.append({"upload": upload.pk, "staging": upload.staging_name,
+                          "bytes": path.stat().st_size if path.exists() else 0})
+            if dry_run:
+                continue
+            _mark_failed(
+                upload, failure=f"abandoned: no chunk for {after_s / 3600:g} hours; start again",
+                next_step="Start the upload again: announce it anew and send all its chunks.",
+                params={"abandoned_after_s": after_s, "received_bytes": upload.received_bytes},
+            )
+            discard_staging_on_commit(upload)
+    return ended

@@ -2,42 +2,33 @@
 
 from pathlib import Path
 
+from django.core.exceptions import PermissionDenied
 from django.core.paginator import Paginator
-from django.http import FileResponse, Http404, JsonResponse, StreamingHttpResponse
+from django.http import FileResponse, JsonResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
-from django.views.decorators.csrf import csrf_exempt, csrf_protect
+from django.views.decorators.csrf import csrf_exempt
 
-from portal.accounts.permissions import Action, access, can, get_visible_site, require
+from portal.accounts.permissions import Action, access, get_visible_site, require
 from portal.audit.events import record
 from portal.datasets import blobs
+from portal.datasets.access import (
+    may_download_version,
+    upload_studies,
+    visible_upload,
+    visible_version,
+)
 from portal.datasets.downloads import stream_version_zip
 from portal.datasets.forms import UploadForm
-from portal.datasets.models import DatasetVersion, Upload, UploadState, VersionFile
+from portal.datasets.models import UploadState, VersionFile
 from portal.datasets.services import (
     UploadError,
     pack_staged_files,
     safe_relative_path,
     submit_staged,
 )
-from portal.datasets.uploadhandler import StagingUploadHandler
+from portal.datasets.uploadhandler import StagingUploadHandler, csrf_refusal
 from portal.jobs.models import Job
-
-
-def visible_upload(user, upload_id):
-    upload = get_object_or_404(Upload.objects.select_related("site", "study"), pk=upload_id)
-    if not can(user, Action.VIEW, site=upload.site):
-        raise Http404("no such upload")
-    return upload
-
-
-def visible_version(user, version_id):
-    version = get_object_or_404(
-        DatasetVersion.objects.select_related("site", "study", "parent", "upload"), pk=version_id
-    )
-    if not can(user, Action.VIEW, site=version.site):
-        raise Http404("no such dataset version")
-    return version
 
 
 def upload_job(upload):
@@ -68,13 +59,22 @@ def _upload_context(user, upload_id):
 def upload_new(request, site_slug):
     """The web upload: one archive, or the files of a dataset folder, streamed to staging."""
     site = get_visible_site(request.user, site_slug)
-    require(request.user, Action.UPLOAD, site=site)
+    if not upload_studies(request.user, site).exists():
+        raise PermissionDenied(f"you may not upload for {site.slug}")
     if request.method == "POST":
-        # Our handler must be in place before anything (the CSRF check) reads the body.
+        # Log-in, permission and CSRF are checked before the body is read: reading it writes
+        # the files to staging through our handler.
+        refusal = csrf_refusal(request)
+        if refusal is not None:
+            if request.headers.get("Accept", "").startswith("application/json"):
+                return JsonResponse({"error": "the form's security token is missing or "
+                                     "expired; reload the upload page and send again",
+                                     "field": "csrf"}, status=403)
+            return refusal
         request.upload_handlers = [StagingUploadHandler(request)]
         return _receive(request, site)
     return render(request, "datasets/upload_new.html", {
-        "site": site, "form": UploadForm(studies=site.studies.all()),
+        "site": site, "form": UploadForm(studies=upload_studies(request.user, site)),
     })
 
 
@@ -82,15 +82,15 @@ def _staged_of(request):
     return [f for key in ("archive", "files") for f in request.FILES.getlist(key)]
 
 
-@csrf_protect
 def _receive(request, site):
-    form = UploadForm(request.POST, studies=site.studies.all())
+    studies = upload_studies(request.user, site)
+    form = UploadForm(request.POST, studies=studies)
     staged = _staged_of(request)
     wants_json = request.headers.get("Accept", "").startswith("application/json")
     try:
         if not form.is_valid():
             raise UploadError("choose the study and what the files are", field="study")
-        study = site.studies.get(slug=form.cleaned_data["study"])
+        study = studies.get(slug=form.cleaned_data["study"])
         archives, files = request.FILES.getlist("archive"), request.FILES.getlist("files")
         if bool(archives) == bool(files):
             raise UploadError("send either one archive (.zip, .tar, .tar.gz) or the files of "
@@ -142,14 +142,14 @@ def version_detail(request, version_id):
         "version": version, "recordings": recordings,
         "participants": version.recordings.values("participant__label").distinct().count(),
         "files": version.files.all()[:200],
-        "may_download": can(request.user, Action.DOWNLOAD, site=version.site),
+        "may_download": may_download_version(request.user, version),
     })
 
 
 @access("checked")
 def download_file(request, version_id, file_id):
     version = visible_version(request.user, version_id)
-    require(request.user, Action.DOWNLOAD, site=version.site)
+    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
     item = get_object_or_404(VersionFile, pk=file_id, version=version)
     record("download", actor=request.user, token=getattr(request, "api_token", None),
            site=version.site, study=version.study, target=item,
@@ -162,7 +162,7 @@ def download_file(request, version_id, file_id):
 @access("checked")
 def download_version(request, version_id):
     version = visible_version(request.user, version_id)
-    require(request.user, Action.DOWNLOAD, site=version.site)
+    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
     rows = list(version.files.values_list("path", "sha256", "bytes"))
     folder = f"{version.site.slug}-v{version.number}"
     record("download", actor=request.user, token=getattr(request, "api_token", None),

@@ -4,6 +4,7 @@ import hashlib
 import io
 
 import pytest
+from django.test import Client
 from django.urls import reverse
 
 from portal.accounts.models import ApiToken
@@ -119,3 +120,107 @@ def test_another_sites_manager_cannot_touch_the_upload(client, lab):
     assert client.get(reverse("api:upload", args=[upload_id]),
                       HTTP_AUTHORIZATION=lab["other"]).status_code == 404
     assert create(client, lab, 10, auth=lab["other"]).status_code == 404
+
+
+# --- abandoned uploads, the staging quota, strict sizes, chunks outside transactions --------
+
+def test_abandoned_upload_expires_and_its_staging_goes(client, lab, settings,
+                                                      django_capture_on_commit_callbacks):
+    from datetime import timedelta
+
+    from django.core.management import call_command
+    from django.utils import timezone
+
+    settings.UPLOAD_ABANDONED_AFTER_S = 48 * 3600
+    stale_id = create(client, lab, 20).json()["upload"]
+    put(client, lab, stale_id, 0, b"0123456789")
+    fresh_id = create(client, lab, 20).json()["upload"]
+    stale = Upload.objects.get(pk=stale_id)
+    assert stale.last_chunk_at is not None
+    Upload.objects.filter(pk=stale_id).update(
+        last_chunk_at=timezone.now() - timedelta(hours=49))
+    Upload.objects.filter(pk=fresh_id).update(  # announced long ago, but a chunk came lately
+        created_at=timezone.now() - timedelta(hours=60), last_chunk_at=timezone.now())
+    out = io.StringIO()
+    with django_capture_on_commit_callbacks(execute=True):
+        call_command("collect_blobs", stdout=out)
+    assert f"ended upload {stale_id} as failed: abandoned" in out.getvalue()
+    assert f"removed staging {stale.staging_name} (10 bytes)" in out.getvalue()
+    stale.refresh_from_db()
+    assert stale.state == "failed"
+    assert stale.failure == "abandoned: no chunk for 48 hours; start again"
+    assert not staging_path(stale).exists()
+    body = client.get(reverse("api:upload", args=[stale_id]),
+                      HTTP_AUTHORIZATION=lab["auth"]).json()
+    assert body["state"] == "failed" and "start again" in body["failure"]
+    assert put(client, lab, stale_id, 10, b"0123456789").status_code == 409
+    fresh = Upload.objects.get(pk=fresh_id)
+    assert fresh.state == "receiving" and staging_path(fresh).exists()
+
+
+def test_staging_quota_per_site_refuses_with_what_is_in_use(client, lab, settings):
+    settings.SITE_STAGING_QUOTA_BYTES = 1000
+    assert create(client, lab, 600).status_code == 201
+    refused = create(client, lab, 500)
+    assert refused.status_code == 400
+    body = refused.json()
+    assert body["field"] == "size"
+    assert "600 bytes in uploads still receiving" in body["error"]
+    assert "staging quota of 1000 bytes" in body["error"]
+    assert create(client, lab, 400).status_code == 201  # what is left still fits
+    assert create(client, lab, 100, auth=lab["other"]).status_code == 404  # not their site
+
+
+@pytest.mark.parametrize("size", [True, False, 12.0, "12", None])
+def test_size_must_be_a_whole_json_number(client, lab, size):
+    response = create(client, lab, size)
+    assert response.status_code == 400 and response.json()["field"] == "size"
+    assert not Upload.objects.exists()
+
+
+class SlowBody:
+    """A request body read in pieces; ``on_read`` runs before each piece is given out."""
+
+    def __init__(self, data, on_read):
+        self.data, self.position, self.on_read = data, 0, on_read
+
+    def read(self, n):
+        self.on_read()
+        piece = self.data[self.position:self.position + min(n, 4096)]
+        self.position += len(piece)
+        return piece
+
+
+@pytest.mark.django_db(transaction=True)
+def test_a_slow_chunk_is_received_outside_any_transaction(lab):
+    from django.db import connection
+
+    from portal.datasets.services import write_chunk
+
+    data = bytes(range(256)) * 64
+    upload = Upload.objects.get(pk=create(Client(), lab, len(data)).json()["upload"])
+    inside = []
+    write_chunk(upload.pk, offset=0, length=len(data),
+                stream=SlowBody(data, lambda: inside.append(connection.in_atomic_block)))
+    assert inside and not any(inside), "the body was read inside a transaction"
+    upload.refresh_from_db()
+    assert upload.received == [[0, len(data)]]
+    assert staging_path(upload).read_bytes() == data
+
+
+def test_chunk_for_an_upload_that_ended_meanwhile_is_dropped(client, lab):
+    """The state is checked again, under the row lock, after the slow body arrived."""
+    from portal.datasets.services import UploadError, staging_root, write_chunk
+
+    upload_id = create(client, lab, 8192).json()["upload"]
+
+    def ended_meanwhile():
+        Upload.objects.filter(pk=upload_id).update(state="failed")
+
+    with pytest.raises(UploadError) as refused:
+        write_chunk(upload_id, offset=0, length=8192,
+                    stream=SlowBody(b"\1" * 8192, ended_meanwhile))
+    assert refused.value.field == "state"
+    upload = Upload.objects.get(pk=upload_id)
+    assert upload.received == [] and staging_path(upload).read_bytes() == b""
+    assert sorted(p.name for p in staging_root().iterdir()) == [upload.staging_name]

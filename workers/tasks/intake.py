@@ -14,6 +14,7 @@ from django.db.models import Max
 
 from portal.audit.events import record
 from portal.datasets import blobs
+from portal.datasets.blobs import StorageFull, storage_errors
 from portal.datasets.models import (
     Block,
     DatasetVersion,
@@ -21,7 +22,6 @@ from portal.datasets.models import (
     Recording,
     Upload,
     UploadMode,
-    UploadState,
     VersionFile,
 )
 from portal.datasets.services import (
@@ -78,10 +78,8 @@ def _manifest_sha(files):
 
 
 def validate_upload(ctx):
-    from workers.bids.validate import validate_dataset
-
     upload = Upload.objects.select_related("site", "study").get(pk=ctx.job.target_id)
-    if upload.state in (UploadState.ACCEPTED, UploadState.REJECTED):
+    if upload.is_final:
         with ctx.finish() as job:
             job.result = {"already": upload.state}
         return
@@ -94,23 +92,45 @@ def validate_upload(ctx):
             "send the dataset again"
         )
     parent = _latest_version(upload)
-    with temporary_dir() as tmp:
+    try:
+        files, originals, scrubbed, result = _check_and_store(ctx, upload, archive, parent,
+                                                              protocol)
+    except StorageFull as exc:
+        raise JobError(
+            f"storage full: upload {upload.pk} ({upload.label}) could not be stored ({exc.reason} "
+            f"while {exc.what}); no dataset version was written. Ask an operator to free space "
+            "on the server, then send the dataset again"
+        ) from exc
+    if files is None:
+        return _reject(ctx, upload, result["errors"], result["warnings"])
+    parent_files = {f.path: (f.sha256, f.bytes) for f in parent.files.all()} if parent else {}
+    _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result)
+
+
+def _check_and_store(ctx, upload, archive, parent, protocol):
+    """Unpack and check the upload in a work folder; if it passes, move its files into the blob
+    store. Returns (files, originals, scrubbed, report); files is None when it is rejected."""
+    from workers.bids.validate import validate_dataset
+
+    with temporary_dir(ctx.job, ctx.token) as tmp:
         tmp = Path(tmp)
         root = tmp / "dataset"
         incoming = tmp / "incoming"
-        try:
-            extract_archive(archive, incoming, label=upload.label)
-        except ArchiveError as exc:
-            return _reject(ctx, upload, [_problem(upload.label, str(exc), "archive")], [])
-        if upload.mode == UploadMode.ADDITION and parent is not None:
-            root.mkdir()
-            _materialise(parent, root)
-            for relative in list_files(incoming):
-                target = root / relative
-                target.parent.mkdir(parents=True, exist_ok=True)
-                shutil.move(str(incoming / relative), target)
-        else:
-            incoming.rename(root)
+        with storage_errors("unpacking the upload in staging"):
+            try:
+                extract_archive(archive, incoming, label=upload.label)
+            except ArchiveError as exc:
+                return None, {}, [], {"errors": [_problem(upload.label, str(exc), "archive")],
+                                      "warnings": []}
+            if upload.mode == UploadMode.ADDITION and parent is not None:
+                root.mkdir()
+                _materialise(parent, root)
+                for relative in list_files(incoming):
+                    target = root / relative
+                    target.parent.mkdir(parents=True, exist_ok=True)
+                    shutil.move(str(incoming / relative), target)
+            else:
+                incoming.rename(root)
         ctx.progress(0, 1, "checking the dataset")
         report = validate_dataset(
             root,
@@ -128,7 +148,7 @@ def validate_upload(ctx):
         )
         result = report.as_dict()
         if not report.ok:
-            return _reject(ctx, upload, result["errors"], result["warnings"])
+            return None, {}, [], result
         originals = {}
         scrubbed = []
         if protocol.get("deidentification") == "scrub":
@@ -140,8 +160,7 @@ def validate_upload(ctx):
         files = {}
         for relative in list_files(root):
             files[relative] = blobs.adopt_file(root / relative)
-    parent_files = {f.path: (f.sha256, f.bytes) for f in parent.files.all()} if parent else {}
-    _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result)
+    return files, originals, scrubbed, result
 
 
 def _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result):

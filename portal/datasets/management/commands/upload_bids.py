@@ -11,7 +11,8 @@ from portal.datasets.services import UploadError, submit_path
 
 class Command(BaseCommand):
     help = ("Submit a BIDS dataset (a folder, .zip or .tar(.gz)) for a site, through the same "
-            "path as the web upload. Exit status 0 when accepted, 1 when rejected.")
+            "path as the web upload. Exit status 0 when accepted, 1 when rejected, 2 when its "
+            "validation failed (the output says the next step).")
 
     def add_arguments(self, parser):
         parser.add_argument("path")
@@ -42,10 +43,11 @@ class Command(BaseCommand):
                                        f"{timeout_s:g} s; is a worker running?")
                 time.sleep(0.5)
                 upload.refresh_from_db()
-                self._check_job(upload)
         self._report(upload, options["json"])
         if upload.state == UploadState.REJECTED:
             raise SystemExit(1)
+        if upload.state == UploadState.FAILED:
+            raise SystemExit(2)
 
     def _user(self, username):
         User = get_user_model()
@@ -60,13 +62,6 @@ class Command(BaseCommand):
                                "--role operator, or pass --as-user")
         return user
 
-    def _check_job(self, upload):
-        from portal.jobs.models import Job, JobState
-
-        job = Job.objects.filter(target_type="datasets.upload", target_id=str(upload.pk)).first()
-        if job is not None and job.state == JobState.FAILED:
-            raise CommandError(f"validation job {job.pk} failed: {job.error}")
-
     def _report(self, upload: Upload, as_json):
         version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
         out = {
@@ -75,11 +70,16 @@ class Command(BaseCommand):
             "dataset_version": version.pk if version else None,
             "errors": upload.errors,
             "warnings": upload.warnings,
+            "failure": upload.failure or None,
+            "next_step": upload.next_step or None,
         }
         if as_json:
             self.stdout.write(json.dumps(out, indent=2))
             return
         self.stdout.write(f"upload {upload.pk}: {upload.get_state_display()}")
+        if upload.state == UploadState.FAILED:
+            self.stdout.write(f"  failure   {upload.failure}")
+            self.stdout.write(f"  next step {upload.next_step}")
         for problem in upload.errors:
             self.stdout.write(f"  error   {_where(problem)}: {problem['message']}")
         for problem in upload.warnings:
