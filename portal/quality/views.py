@@ -6,18 +6,23 @@ from pathlib import Path
 
 from django.contrib import messages
 from django.http import FileResponse, Http404, HttpResponse
-from django.shortcuts import get_object_or_404, redirect, render
+from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
-from portal.accounts.permissions import Action, access, can, require
+from portal.accounts.permissions import Action, access, require
 from portal.audit import reproduce
 from portal.audit.events import record
-from portal.datasets.models import Recording
-from portal.datasets.views import visible_version
+from portal.datasets.access import visible_version
 from portal.quality import plots
+from portal.quality.access import (
+    may_decide_channels,
+    recording_in_round,
+    visible_qc_run,
+    visible_round,
+)
 from portal.quality.derivatives import write_derivative
 from portal.quality.forms import OverrideForm, RerunForm
-from portal.quality.models import QCRound, QCRun, Verdict
+from portal.quality.models import Verdict
 from portal.quality.services import (
     decided_verdict,
     effective_channels,
@@ -31,14 +36,6 @@ from portal.quality.services import (
 )
 
 VERDICT_ORDER = {Verdict.FAIL: 0, Verdict.REVIEW: 1, Verdict.PASS: 2, None: 3}
-
-
-def visible_round(user, round_id):
-    qc_round = get_object_or_404(
-        QCRound.objects.select_related("version__site", "version__study"), pk=round_id)
-    if not can(user, Action.VIEW, site=qc_round.version.site):
-        raise Http404("no such quality round")
-    return qc_round
 
 
 @access("checked")
@@ -101,7 +98,7 @@ def round_detail(request, round_id):
         rows.sort(key=lambda r: -(r["shown"]["n_bad_channels"] if r["shown"] else -1))
     else:
         rows.sort(key=lambda r: r["recording"].path)
-    may_run = can(request.user, Action.RUN_JOBS, site=version.site, study=version.study)
+    may_run = may_decide_channels(request.user, qc_round)
     return render(request, "quality/round.html", {
         **work_status(qc_round),
         "round": qc_round, "version": version, "rows": rows, "sort": sort,
@@ -129,21 +126,15 @@ def rerun(request, version_id):
     return redirect("quality:round", round_id=qc_round.pk)
 
 
-def _recording_in_round(user, round_id, recording_id):
-    qc_round = visible_round(user, round_id)
-    recording = get_object_or_404(Recording, pk=recording_id, version=qc_round.version)
-    return qc_round, recording
-
-
 @access("checked")
 def recording_quality(request, round_id, recording_id):
-    qc_round, recording = _recording_in_round(request.user, round_id, recording_id)
+    qc_round, recording = recording_in_round(request.user, round_id, recording_id)
     site = qc_round.version.site
     run = run_for(qc_round, recording)
     overrides = latest_overrides(site, recording.sha256)
     channels = effective_channels(run, overrides) if run else {}
     decided = decided_verdict(run, overrides) if run else None
-    may_override = can(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
+    may_override = may_decide_channels(request.user, qc_round)
     form = OverrideForm(channels=recording.channel_names) if may_override else None
     return render(request, "quality/recording.html", {
         "round": qc_round, "recording": recording, "run": run, "channels": channels,
@@ -163,7 +154,7 @@ def recording_overrides(site, sha256):
 @access("checked")
 @require_POST
 def override(request, round_id, recording_id):
-    qc_round, recording = _recording_in_round(request.user, round_id, recording_id)
+    qc_round, recording = recording_in_round(request.user, round_id, recording_id)
     site = qc_round.version.site
     require(request.user, Action.RUN_JOBS, site=site, study=qc_round.version.study)
     form = OverrideForm(request.POST, channels=recording.channel_names)
@@ -182,9 +173,7 @@ def override(request, round_id, recording_id):
 
 @access("checked")
 def plot(request, run_id, kind):
-    run = get_object_or_404(QCRun.objects.select_related("site"), pk=run_id)
-    if not can(request.user, Action.VIEW, site=run.site):
-        raise Http404("no such plot")
+    run = visible_qc_run(request.user, run_id)
     if kind not in plots.KINDS:
         raise Http404("no such plot")
     svg = plots.render(run, kind)
@@ -197,7 +186,7 @@ def plot(request, run_id, kind):
 def download_derivative(request, round_id):
     qc_round = visible_round(request.user, round_id)
     version = qc_round.version
-    require(request.user, Action.DOWNLOAD, site=version.site)
+    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
     folder = f"{version.site.slug}-v{version.number}-qc{qc_round.pk}"
     spool = tempfile.TemporaryFile()
     with tempfile.TemporaryDirectory(prefix="cairn-qc-export-") as tmp:
