@@ -1,16 +1,21 @@
-"""Failure states on PostgreSQL (issue 13): a heartbeat whose connection the server cut, and
-a slow upload chunk that must not hold the upload's row lock while its body arrives."""
+"""Failure states on PostgreSQL (issue 13): a heartbeat whose connection the server cut, a
+worker whose database connection drops mid-job, and a slow upload chunk that must not hold
+the upload's row lock while its body arrives."""
 
+import os
 import threading
 
 import pytest
 from django.db import DatabaseError, connection, connections, transaction
 
 from portal.accounts.setup import add_site, add_study
+from portal.audit.models import Event
 from portal.datasets.models import Upload
 from portal.datasets.services import start_chunked, write_chunk
 from portal.jobs import runner, services
+from portal.jobs.models import Job, JobState
 from tests.helpers import member, skip_or_fail
+from tests.integration.conftest import wait_for
 
 pytestmark = [pytest.mark.integration, pytest.mark.django_db(transaction=True)]
 
@@ -103,3 +108,42 @@ def test_slow_chunk_leaves_the_upload_row_unlocked_while_it_arrives(postgres):
     assert attempts and set(attempts) == {"locked it"}, attempts[:1]
     upload.refresh_from_db()
     assert upload.received == [[0, len(data)]]
+
+
+def cut_other_sessions():
+    """End every other session of this database (the worker's), as a restart would."""
+    with connection.cursor() as cursor:
+        cursor.execute("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
+                       "WHERE datname = current_database() AND pid <> pg_backend_pid()")
+        return len(cursor.fetchall())
+
+
+def test_worker_whose_database_connection_drops_retries_without_losing_an_attempt(
+        postgres, settings, start_worker):
+    """A real Celery worker (Redis broker): its sessions are cut mid-job; the job is retried
+    after a pause, counted as a transient retry, and finishes on its first attempt."""
+    if not settings.CELERY_BROKER_URL.startswith("redis://"):
+        skip_or_fail("needs Redis: set CELERY_BROKER_URL=redis://…")
+    import redis
+
+    redis.Redis.from_url(settings.CELERY_BROKER_URL).flushdb()
+    db = connection.settings_dict
+    env = dict(os.environ, CAIRN_EMBEDDED="true", CAIRN_JOB_LEASE_S="30",
+               CAIRN_JOB_HEARTBEAT_S="0.5", CELERY_BROKER_URL=settings.CELERY_BROKER_URL,
+               DATABASE_URL=f"postgres://{db['USER'] or 'postgres'}@{db['HOST'] or '127.0.0.1'}:"
+                            f"{db['PORT'] or 5432}/{db['NAME']}")
+    with transaction.atomic():
+        job = services.enqueue("probe", params={"steps": 12, "step_s": 0.3})
+    start_worker(env)
+
+    def progress():
+        job.refresh_from_db()
+        return job.progress_done >= 2
+
+    wait_for(progress, 60, "the worker to make progress")
+    assert cut_other_sessions() >= 1
+    wait_for(lambda: Job.objects.get(pk=job.pk).state == JobState.DONE, 90,
+             "the job to finish after the retry")
+    job.refresh_from_db()
+    assert (job.attempts, job.transient_failures) == (1, 1)
+    assert Event.objects.filter(verb="job.retrying", target_id=str(job.pk)).count() == 1
