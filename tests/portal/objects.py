@@ -42,6 +42,7 @@ def fill(site, study, *, owner=None, label=None):
         site=site, recording_sha256=recording.sha256, settings_digest="2" * 64,
         code_version="test", settings={}, verdict="pass", result={
             "channels": {"Cz": {"status": "good", "reasons": [], "metrics": {}}},
+            "sfreq_hz": 250.0, "duration_s": 60.0,
             "segments": [], "rejected_share": 0.0, "verdict": "pass", "verdict_reasons": [],
             "psd": {"freqs_hz": [1.0, 2.0], "unit": "dB re 1 µV²/Hz",
                     "channels": {"Cz": [10.0, 8.5]}},
