@@ -41,6 +41,9 @@ def _schedule_sweeper(sender, **_):
     sender.add_periodic_task(
         settings.JOB_SWEEP_EVERY_S, sender.signature("cairn.sweep_jobs"), name="sweep jobs"
     )
+    sender.add_periodic_task(min(3600.0, settings.UPLOAD_ABANDONED_AFTER_S / 4),
+                             sender.signature("cairn.expire_uploads"),
+                             name="end abandoned uploads")
     sender.add_periodic_task(max(1.0, settings.AUDIT_SEAL_EVERY_S),
                              sender.signature("cairn.audit_seal"), name="link audit events")
     sender.add_periodic_task(settings.AUDIT_ANCHOR_EVERY_S,

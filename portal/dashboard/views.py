@@ -56,7 +56,8 @@ def _site_rows(sites, user, study=None):
         n_uploads=Count("uploads", filter=in_study, distinct=True),
         n_waiting=Count("uploads", filter=in_study & Q(uploads__state__in=[
             UploadState.QUEUED, UploadState.VALIDATING]), distinct=True),
-        n_rejected=Count("uploads", filter=in_study & Q(uploads__state=UploadState.REJECTED),
+        n_rejected=Count("uploads", filter=in_study & Q(uploads__state__in=[
+            UploadState.REJECTED, UploadState.FAILED]),
                          distinct=True),
         last_upload=Max("uploads__created_at", filter=in_study),
     ).order_by("slug")
@@ -241,7 +242,7 @@ def site_page(request, site_slug):
         run__feature_set__in=FeatureSet.objects.filter(versions__site=site).values("pk"),
         run__study__in=studies, state=ReleaseState.APPROVED).filter(
         Q(trained_on_site__isnull=True) | Q(trained_on_site=site))
-        .order_by("-created_at", "-id")[:10])
+        .select_related("run").order_by("-created_at", "-id")[:10])
     return render(request, "dashboard/site.html", {
         "site": site, "uploads": uploads, "upload_sort": upload_sort,
         "may_upload": upload_studies(request.user, site).exists(),

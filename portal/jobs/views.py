@@ -24,6 +24,7 @@ def job_progress(request, job_id):
 def job_json(job):
     return {
         "id": job.pk, "kind": job.kind, "state": job.state, "attempts": job.attempts,
+        "transient_failures": job.transient_failures,
         "progress": {"done": job.progress_done, "total": job.progress_total,
                      "note": job.progress_note},
         "error": job.error or None, "result": job.result,

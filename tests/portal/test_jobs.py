@@ -198,6 +198,9 @@ def test_transient_errors_are_retried_and_never_count_as_lost_workers(sent, hook
     assert "stopped each time" not in job.error
     assert Event.objects.filter(verb="job.retrying", target_id=str(job.pk)).count() == 3
     assert [(c[0], c[3]) for c in hooked] == [(job.pk, "transient")]
+    from portal.jobs.views import job_json
+
+    assert job_json(job)["transient_failures"] == 4  # what the API and the job page show
 
 
 def test_database_still_out_when_giving_back_is_resumed_by_token(sent, monkeypatch):

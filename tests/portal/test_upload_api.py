@@ -158,6 +158,26 @@ def test_abandoned_upload_expires_and_its_staging_goes(client, lab, settings,
     assert fresh.state == "receiving" and staging_path(fresh).exists()
 
 
+def test_beat_ends_abandoned_uploads_without_an_operator(client, lab, settings,
+                                                         django_capture_on_commit_callbacks):
+    """The clock that runs the sweeper also ends abandoned uploads (no cron needed)."""
+    from datetime import timedelta
+
+    from django.utils import timezone
+
+    from portal.celery import app
+    from workers.tasks.jobs import expire_uploads
+
+    app.loader.import_default_modules()
+    schedule = {entry["task"] for entry in app.conf.beat_schedule.values()}
+    assert "cairn.expire_uploads" in schedule
+    stale_id = create(client, lab, 20).json()["upload"]
+    Upload.objects.filter(pk=stale_id).update(created_at=timezone.now() - timedelta(days=9))
+    with django_capture_on_commit_callbacks(execute=True):
+        assert expire_uploads() == 1
+    assert Upload.objects.get(pk=stale_id).state == "failed"
+
+
 def test_staging_quota_per_site_refuses_with_what_is_in_use(client, lab, settings):
     settings.SITE_STAGING_QUOTA_BYTES = 1000
     assert create(client, lab, 600).status_code == 201

@@ -27,6 +27,14 @@ def sweep_jobs():
     return services.sweep()
 
 
+@shared_task(name="cairn.expire_uploads", ignore_result=True)
+def expire_uploads():
+    """End resumable uploads that stopped sending (and free their staged bytes)."""
+    from portal.datasets.services import expire_abandoned
+
+    return len(expire_abandoned())
+
+
 @shared_task(name="cairn.audit_seal", ignore_result=True)
 def audit_seal():
     """Link events committed since the last seal (after-commit sealing is batched)."""
