@@ -42,7 +42,11 @@ from workers.learning.canonical import (
     skops_bytes,
     trusted_types,
 )
-from workers.learning.ensembles import GroupBaggingClassifier, GroupStackingClassifier
+from workers.learning.ensembles import (
+    GroupBaggingClassifier,
+    GroupCalibratedClassifier,
+    GroupStackingClassifier,
+)
 from workers.learning.learners import LEARNERS, make_learner
 
 REPO = Path(__file__).resolve().parents[2]
@@ -50,10 +54,6 @@ BAGGING = "workers.learning.ensembles.GroupBaggingClassifier"
 STACKING = "workers.learning.ensembles.GroupStackingClassifier"
 TREE = "sklearn.tree._tree.Tree"
 
-# scikit-learn 1.9 deprecates SVC(probability=True) (removal planned for 1.11); the learners
-# keep it on purpose (soft voting and stacking need probabilities), see learners.py.
-pytestmark = pytest.mark.filterwarnings(
-    "ignore:The `probability` parameter was deprecated:FutureWarning")
 
 
 @pytest.fixture(scope="module")
@@ -530,10 +530,11 @@ def test_learner_table():
                              "extra_trees", "hist_gradient_boosting", "mlp"}
     params = {name: make_learner(name).get_params() for name in LEARNERS}
     assert params["lda"]["solver"] == "lsqr" and params["lda"]["shrinkage"] == "auto"
-    assert params["linear_svm"]["kernel"] == "linear" and params["linear_svm"]["probability"]
-    assert params["rbf_svm"]["kernel"] == "rbf" and params["rbf_svm"]["probability"]
+    assert params["linear_svm"]["estimator__kernel"] == "linear"
+    assert params["rbf_svm"]["estimator__kernel"] == "rbf"
+    assert {n for n, learner in LEARNERS.items() if learner.grouped} == {"linear_svm", "rbf_svm"}
     assert params["knn"]["n_neighbors"] == 15
-    assert params["mlp"]["early_stopping"]
+    assert params["mlp"]["early_stopping"] is False
     for name, p in params.items():
         assert p.get("n_jobs") in (None, 1), name
         assert LEARNERS[name].name == name and LEARNERS[name].description
@@ -548,14 +549,16 @@ def test_every_learner_fits_predicts_and_round_trips(wine, name):
     (equal probabilities and model_digest); predicting leaves the digest alone (k-NN's
     search tree counts its queries; those counters are not content); and the skops release
     (trusting exactly what trusted_types lists) predicts identically with the same digest."""
-    X, y, _ = wine
+    X, y, groups = wine
     fit_rows, test_rows = train_test_split(np.arange(y.size), test_size=0.5, stratify=y,
                                            random_state=0)
+    kwargs = {"groups": groups[fit_rows]} if LEARNERS[name].grouped else {}
     with warnings.catch_warnings():
         warnings.simplefilter("error", category=UserWarning)  # e.g. convergence
-        model = make_learner(name, random_state=0).fit(X[fit_rows], y[fit_rows])
+        warnings.simplefilter("error", category=FutureWarning)  # e.g. deprecated parameters
+        model = make_learner(name, random_state=0).fit(X[fit_rows], y[fit_rows], **kwargs)
     digest = model_digest(model)
-    again = make_learner(name, random_state=0).fit(X[fit_rows], y[fit_rows])
+    again = make_learner(name, random_state=0).fit(X[fit_rows], y[fit_rows], **kwargs)
     proba = model.predict_proba(X[test_rows])
     np.testing.assert_allclose(proba.sum(axis=1), 1.0, rtol=0, atol=1e-9)
     assert np.mean(model.predict(X[test_rows]) == y[test_rows]) >= 0.8
@@ -581,3 +584,102 @@ def test_make_learner_errors_name_the_parameter():
         make_learner("lda", [("shrinkage", 0.1)])
     assert make_learner("lda", {"shrinkage": 0.2}).shrinkage == 0.2
     assert make_learner("extra_trees", random_state=4).random_state == 4
+
+
+# --- internal splits ------------------------------------------------------------------------
+
+def _row_data(n_participants=10, per=12, seed=0):
+    """Two informative features and a last one that carries the row number (scaled to be
+    negligible), so that a spy can tell which rows a fit saw; participant = row // per."""
+    rng = np.random.default_rng(seed)
+    n = n_participants * per
+    y = np.tile(np.repeat([0, 1], per // 2), n_participants)
+    X = np.column_stack([rng.normal(y, 1.0), rng.normal(-y, 1.0), np.arange(n) * 1e-6])
+    return X, y, np.arange(n) // per
+
+
+def _rows(X):
+    return np.rint(np.asarray(X)[:, -1] * 1e6).astype(int)  # the last column
+
+
+def test_no_learner_splits_windows_internally(monkeypatch):
+    """Sources: scikit-learn 1.9.1's documentation -- MLPClassifier and
+    HistGradientBoostingClassifier with ``early_stopping`` set aside ``validation_fraction``
+    of the training rows (a split of rows, stratified by class, blind to groups); SVC's
+    ``probability=True`` calibrates by an internal 5-fold cross-validation of rows (libsvm);
+    ``CalibratedClassifierCV`` takes ``cv`` as an iterable of (train, test) splits. Windows
+    of one participant on both sides of such a split make the probabilities or the stopping
+    point optimistic (Varoquaux et al. 2017, NeuroImage 145:166, from memory).
+
+    Every learner as configured: no early stopping, no libsvm probabilities; the learners
+    whose probabilities are calibrated are fitted through every path that fits them (alone,
+    as bagging members drawn by participant, as stacking members on inner folds and refitted,
+    and as the meta-learner), and a spy on CalibratedClassifierCV.fit checks, from the row
+    numbers it was given, that no calibration split puts one participant on both sides."""
+    X, y, groups = _row_data()
+    for name, learner in LEARNERS.items():
+        for key, value in make_learner(name).get_params(deep=True).items():
+            leaf = key.rsplit("__", 1)[-1]
+            if leaf == "early_stopping":
+                assert value is False, name
+            if leaf == "probability":
+                assert value in (False, "deprecated"), name
+        for key, _ in learner.refused:
+            with pytest.raises(ValueError, match=f"does not take '{key}'.*leave it out"):
+                make_learner(name, {key: True})
+
+    seen = []
+    original = __import__("sklearn.calibration", fromlist=["x"]).CalibratedClassifierCV.fit
+
+    def spy(self, X_fit, y_fit, *args, **kwargs):
+        rows = _rows(X_fit)
+        seen.append([(rows[train], rows[test]) for train, test in self.cv])
+        return original(self, X_fit, y_fit, *args, **kwargs)
+
+    monkeypatch.setattr("sklearn.calibration.CalibratedClassifierCV.fit", spy)
+    grouped = [name for name, learner in LEARNERS.items() if learner.grouped]
+    fits = []
+    for name in grouped:
+        fits.append(make_learner(name, random_state=1).fit(X, y, groups=groups))
+        fits.append(GroupBaggingClassifier(make_learner(name), n_estimators=3,
+                                           random_state=2).fit(X, y, groups=groups))
+        fits.append(GroupStackingClassifier(
+            [("svm", make_learner(name)), ("lda", make_learner("lda"))],
+            final_estimator=make_learner(name), n_inner_splits=3, passthrough=True,
+            random_state=3).fit(X, y, groups=groups))  # passthrough: the meta-learner's
+        # input ends with X's columns, so the spy reads its row numbers too
+    # alone 1; bagging 3 members; stacking 3 inner + 1 refit of the member, 1 meta-learner.
+    assert len(seen) == len(grouped) * (1 + 3 + 3 + 1 + 1)
+    for splits in seen:
+        assert len(splits) >= 2
+        for train, test in splits:
+            assert train.size and test.size
+            assert not set(groups[train].tolist()) & set(groups[test].tolist())
+    proba = fits[0].predict_proba(X)
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0, rtol=0, atol=1e-9)
+    with pytest.raises(ValueError, match="groups.*participant of every row"):
+        make_learner("linear_svm").fit(X, y)
+
+
+def test_grouped_calibration_is_scikit_learns_on_the_grouped_folds():
+    """Reference: scikit-learn 1.9.1 ``CalibratedClassifierCV(SVC(), method="sigmoid",
+    cv=splits, ensemble=True)`` on the same participant-grouped inner folds
+    (``StratifiedGroupKFold`` via workers.learning.validation.inner_splits), and ``SVC``
+    fitted on all rows for predict and decision_function: equal to the last bit."""
+    from sklearn.calibration import CalibratedClassifierCV
+    from sklearn.svm import SVC
+
+    from workers.learning.validation import inner_splits
+
+    X, y, groups = _row_data(seed=4)
+    ours = GroupCalibratedClassifier(SVC(kernel="linear"), n_inner_splits=4,
+                                     random_state=5).fit(X, y, groups=groups)
+    seed = np.random.RandomState(5).randint(np.iinfo(np.int32).max)
+    splits = inner_splits(y, groups, n_splits=4, seed=seed)
+    reference = CalibratedClassifierCV(SVC(kernel="linear"), method="sigmoid", cv=splits,
+                                       ensemble=True).fit(X, y)
+    assert_array_equal(ours.predict_proba(X), reference.predict_proba(X))
+    full = SVC(kernel="linear").fit(X, y)
+    assert_array_equal(ours.predict(X), full.predict(X))
+    assert_array_equal(ours.decision_function(X), full.decision_function(X))
+    assert is_classifier(ours) and list(ours.classes_) == [0, 1]

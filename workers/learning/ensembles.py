@@ -7,9 +7,12 @@ bootstrap draws participants (``GroupBaggingClassifier(sample_by="participant")`
 stacking's inner splits keep each participant's windows together
 (``GroupStackingClassifier``). Both take ``fit(X, y, groups=None)``, ``groups`` being the
 participant of each row; both fit their members on labels encoded as 0..n_classes-1 (the
-order of ``classes_``) and map back on prediction, as scikit-learn's ensembles do.
+order of ``classes_``) and map back on prediction, as scikit-learn's ensembles do, and pass
+each member whose ``fit`` takes ``groups`` the participants of its rows.
+``GroupCalibratedClassifier`` gives a classifier probabilities by Platt scaling on inner
+folds grouped by participant (the SVMs' own calibration splits windows).
 
-Both classes must stay importable as ``workers.learning.ensembles.<name>``: a skops release
+These classes must stay importable as ``workers.learning.ensembles.<name>``: a skops release
 names them by that path, and loading one means trusting those names.
 """
 
@@ -20,7 +23,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin, clone
 from sklearn.utils import check_random_state, get_tags
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.random import sample_without_replacement
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils.validation import check_is_fitted, has_fit_parameter, validate_data
 
 MAX_INT = np.iinfo(np.int32).max
 SAMPLE_BY = ("participant", "window")
@@ -50,6 +53,12 @@ def _check_groups(groups, n_rows, why):
         raise ValueError(f"groups: give one participant per row of X ({n_rows} rows), got "
                          f"shape {groups.shape}")
     return groups
+
+
+def _group_kwargs(estimator, groups):
+    """``{"groups": groups}`` for a member whose fit takes them (and groups are known)."""
+    return {"groups": groups} if groups is not None and has_fit_parameter(
+        estimator, "groups") else {}
 
 
 def _finite(estimators):
@@ -141,8 +150,9 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
         check_classification_targets(y)
         self.classes_, y_code = np.unique(y, return_inverse=True)
         n_rows = X.shape[0]
+        if self.sample_by == "participant" or groups is not None:
+            groups = _check_groups(groups, n_rows, f"sample_by={self.sample_by!r}")
         if self.sample_by == "participant":
-            groups = _check_groups(groups, n_rows, "sample_by='participant'")
             units, unit_of_row = np.unique(groups, return_inverse=True)
             rows_of_unit = [np.flatnonzero(unit_of_row == u) for u in range(units.size)]
 
@@ -159,7 +169,8 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
                 picked = draw_rng.randint(0, units.size, units.size)
                 rows = np.concatenate([rows_of_unit[u] for u in picked])
             try:
-                member.fit(X[rows], y_code[rows])
+                member.fit(X[rows], y_code[rows],
+                           **_group_kwargs(member, None if groups is None else groups[rows]))
             except ValueError as exc:
                 if np.unique(y_code[rows]).size > 1:
                     raise
@@ -351,13 +362,17 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
                              f"({self.classes_[0]!r}); give rows of every class")
         self.stack_method_ = self._stack_methods(members)
         splitter, self.inner_splits_ = self._inner_splits(X, y_code, groups)
+        if groups is not None:
+            groups = np.asarray(groups)
         self.inner_cv_ = type(splitter).__name__
         outputs = [cross_val_predict(clone(estimator), X, y_code, cv=self.inner_splits_,
-                                     method=method)
+                                     method=method, params=_group_kwargs(estimator, groups))
                    for (_, estimator), method in zip(members, self.stack_method_, strict=True)]
         final = LogisticRegression() if self.final_estimator is None else self.final_estimator
-        self.final_estimator_ = clone(final).fit(self._meta_features(X, outputs), y_code)
-        self.estimators_ = [clone(estimator).fit(X, y_code) for _, estimator in members]
+        self.final_estimator_ = clone(final).fit(self._meta_features(X, outputs), y_code,
+                                                 **_group_kwargs(final, groups))
+        self.estimators_ = [clone(estimator).fit(X, y_code, **_group_kwargs(estimator, groups))
+                            for _, estimator in members]
         self.named_estimators_ = {name: fitted for (name, _), fitted
                                   in zip(members, self.estimators_, strict=True)}
         return self
@@ -380,3 +395,78 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
         check_is_fitted(self, "final_estimator_")
         codes = np.asarray(self.final_estimator_.predict(self.meta_features(X))).astype(int)
         return self.classes_.take(codes)
+
+
+class GroupCalibratedClassifier(ClassifierMixin, BaseEstimator):
+    """A classifier whose probabilities come from Platt scaling on inner folds that keep each
+    participant's rows together.
+
+    Parameters
+    ----------
+    estimator : a classifier with ``decision_function`` (e.g. ``SVC()``).
+    n_inner_splits : inner folds from :func:`workers.learning.validation.inner_splits`
+        (``StratifiedGroupKFold`` when every class has that many participants, else shuffled
+        ``GroupKFold``; fewer folds with fewer participants, at least 2 participants).
+    random_state : the inner folds' shuffling.
+
+    ``fit(X, y, groups)`` fits ``estimator`` on all rows: ``predict`` and
+    ``decision_function`` are its own (as an SVC predicts from its decision function,
+    whatever its probabilities). ``predict_proba`` is scikit-learn's
+    ``CalibratedClassifierCV(method="sigmoid", ensemble=True)`` on the inner folds: a copy of
+    ``estimator`` fitted on each inner training part, its sigmoid fitted on the inner test
+    part, the probabilities averaged over folds. An inner fold whose training part lacks a
+    class is skipped. Without ``groups`` it refuses to fit: a split of windows is what it
+    exists to avoid.
+
+    Attributes: ``classes_``, ``n_features_in_``, ``estimator_`` (fitted on all rows),
+    ``calibrated_`` (the fitted ``CalibratedClassifierCV``), ``inner_splits_``.
+    """
+
+    def __init__(self, estimator, n_inner_splits=5, random_state=None):
+        self.estimator = estimator
+        self.n_inner_splits = n_inner_splits
+        self.random_state = random_state
+
+    def fit(self, X, y, groups=None):
+        from sklearn.calibration import CalibratedClassifierCV
+
+        from .validation import inner_splits
+
+        name = type(self.estimator).__name__
+        groups = _check_groups(groups, np.asarray(X).shape[0] if hasattr(X, "shape")
+                               else len(X), f"{name}'s probabilities (grouped calibration)")
+        X, y = validate_data(self, X, y, dtype=None)
+        check_classification_targets(y)
+        self.classes_ = np.unique(y)
+        if self.classes_.size < 2:
+            raise ValueError(f"y: {name} needs at least 2 classes, got 1 "
+                             f"({self.classes_[0]!r}); give rows of every class")
+        k = _check_int(self.n_inner_splits, "n_inner_splits", 2)
+        seed = check_random_state(self.random_state).randint(MAX_INT)
+        splits = [(train, test) for train, test in inner_splits(y, groups, n_splits=k, seed=seed)
+                  if np.unique(y[train]).size == self.classes_.size]
+        if not splits:
+            raise ValueError(f"groups: no inner fold of {name}'s calibration has every class in "
+                             "its training part; give more participants per class")
+        self.inner_splits_ = splits
+        self.calibrated_ = CalibratedClassifierCV(clone(self.estimator), method="sigmoid",
+                                                  cv=splits, ensemble=True).fit(X, y)
+        self.estimator_ = clone(self.estimator).fit(X, y)
+        return self
+
+    def decision_function(self, X):
+        check_is_fitted(self, "estimator_")
+        X = validate_data(self, X, dtype=None, reset=False)
+        return self.estimator_.decision_function(X)
+
+    def predict(self, X):
+        """The estimator's own prediction (from its decision function)."""
+        check_is_fitted(self, "estimator_")
+        X = validate_data(self, X, dtype=None, reset=False)
+        return self.estimator_.predict(X)
+
+    def predict_proba(self, X):
+        """Platt-scaled probabilities, averaged over the grouped inner folds."""
+        check_is_fitted(self, "calibrated_")
+        X = validate_data(self, X, dtype=None, reset=False)
+        return self.calibrated_.predict_proba(X)

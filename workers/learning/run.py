@@ -162,7 +162,11 @@ def build_estimator(model, *, seed):
 
 
 def needs_groups(model):
-    return model.ensemble is not None
+    """True when the model's fit takes the participant of each row: ensembles, and learners
+    whose internal split (probability calibration) is grouped by participant."""
+    from .learners import LEARNERS
+
+    return model.ensemble is not None or LEARNERS[model.learner].grouped
 
 
 def site_standardise(X, sites, train):
