@@ -137,6 +137,154 @@ def test_participant_normalisation_uses_only_the_persons_own_rows():
                                    atol=1e-12)
 
 
+FEATURES = ["alpha.relative_power.Pz", "theta.relative_power.Fz"]
+
+
+def timed_table(n_people=8, n_windows=30, step_s=2.0):
+    """One recording per participant: 4 resting windows (no level), then task blocks of 6
+    windows alternating low and high, at a 2 s step (4 s windows overlap by half). Each
+    person's features carry a person offset and a slow drift, so statistics of different
+    parts of the recording differ."""
+    rng = np.random.default_rng(1)
+    rows = []
+    for p in range(n_people):
+        offset = rng.normal(0, 3, 2)
+        for w in range(n_windows):
+            rest = w < 4
+            level = None if rest else ("low", "high")[((w - 4) // 6 + p) % 2]
+            values = offset + 0.05 * w + rng.normal(0, 1, 2)
+            rows.append({"site": "s1", "participant": f"{p:02d}", "session": "", "task": "t",
+                         "run": "", "window_start_s": w * step_s, "rating": None,
+                         "level": level, "condition": "rest" if rest else level,
+                         "recording": f"sub-{p:02d}_task-t_eeg.edf", "acquisition": "",
+                         "block_onset_s": 0.0 if rest else 8.0 + 12.0 * ((w - 4) // 6),
+                         "qc_verdict": "pass", FEATURES[0]: values[0], FEATURES[1]: values[1]})
+    return pd.DataFrame(rows)
+
+
+def _fitted_inputs(monkeypatch, data, fold, model):
+    """(X the model is fitted on, X it predicts) in one fold, through fit_fold."""
+    seen = {}
+
+    class Recorder(ClassifierMixin, BaseEstimator):
+        def fit(self, X, y):
+            seen["fit"] = np.array(X, copy=True)
+            self.classes_ = np.unique(y)
+            return self
+
+        def predict(self, X):
+            seen["predict"] = np.array(X, copy=True)
+            return np.repeat(self.classes_[0], len(X))
+
+    monkeypatch.setattr(run_module, "build_estimator", lambda model, *, seed: Recorder())
+    run_module.fit_fold(model, data, fold, seed=0)
+    return seen["fit"], seen["predict"]
+
+
+def _flip_test_rows(frame, table_rows):
+    """The table with the given rows' feature values moved by 1000 and their labels swapped."""
+    changed = frame.copy()
+    changed.loc[table_rows, FEATURES] += 1000.0
+    swapped = changed.loc[table_rows, "level"].map({"low": "high", "high": "low"})
+    changed.loc[table_rows, "level"] = swapped
+    changed.loc[table_rows, "condition"] = swapped
+    return changed
+
+
+def _expected(frame, table_rows, reference):
+    """Rows normalised by hand: (value - mean) / SD (ddof 0) of the reference rows."""
+    ref = frame.loc[reference, FEATURES].to_numpy(dtype=float)
+    return (frame.loc[table_rows, FEATURES].to_numpy(dtype=float) - ref.mean(axis=0)) / \
+        ref.std(axis=0)
+
+
+@pytest.mark.parametrize("mode", ["mean", "baseline"])
+def test_time_ordered_normalisation_sees_only_each_persons_earlier_part(monkeypatch, mode):
+    """Common practice, no source: statistics used to transform training data must not come
+    from test data (Varoquaux et al. 2017, NeuroImage 145:166, from memory: every step
+    fitted on data sits inside the cross-validation loop). Under the time-ordered scheme a
+    person's normalisation statistics come from their earlier (training) part only -- all
+    their windows up to their last training window ('mean', the resting windows included:
+    no label is used) or their resting windows ('baseline') -- and their later (test) part
+    is normalised with those same statistics. Spy: the rows the model is fitted on do not
+    change when the test rows' values and labels change, and every value it sees equals the
+    rule computed by hand from the table."""
+    frame = timed_table()
+    within = spec(validation={"scheme": "within_participant_time", "test_share": 0.25},
+                  normalisation={"participant": mode})
+    data = run_module.prepare_data(frame, within, window_s=4.0)
+    (fold,) = run_module.folds_for(within, data)
+    fit_x, predict_x = _fitted_inputs(monkeypatch, data, fold, within.models[0])
+
+    moved = run_module.prepare_data(_flip_test_rows(frame, data.rows[fold.test]), within,
+                                    window_s=4.0)
+    (moved_fold,) = run_module.folds_for(within, moved)
+    np.testing.assert_array_equal(moved_fold.train, fold.train)
+    np.testing.assert_array_equal(moved_fold.test, fold.test)
+    moved_fit, _ = _fitted_inputs(monkeypatch, moved, moved_fold, within.models[0])
+    np.testing.assert_array_equal(moved_fit, fit_x)
+
+    for person in np.unique(data.participants):
+        own = data.participants == person
+        train_rows, test_rows = data.rows[fold.train[own[fold.train]]], \
+            data.rows[fold.test[own[fold.test]]]
+        mine = frame.index[(frame["participant"] == person.split("/")[1])]
+        last_start = frame.loc[train_rows, "window_start_s"].max()
+        earlier = mine[frame.loc[mine, "window_start_s"] <= last_start]
+        if mode == "baseline":
+            earlier = earlier[frame.loc[earlier, "condition"] == "rest"]
+        assert frame.loc[test_rows, "window_start_s"].min() > last_start + 4.0
+        np.testing.assert_allclose(fit_x[own[fold.train]],
+                                   _expected(frame, train_rows, earlier), rtol=1e-12)
+        np.testing.assert_allclose(predict_x[own[fold.test]],
+                                   _expected(frame, test_rows, earlier), rtol=1e-12)
+
+
+@pytest.mark.parametrize("mode", ["mean", "baseline"])
+def test_grouped_normalisation_rule(monkeypatch, mode):
+    """Common practice, no source (as above). Under participant-grouped folds a training
+    person is normalised by their own windows (all of them for 'mean', resting ones for
+    'baseline'); a held-out person by their own resting windows ('baseline') or by their
+    own windows being classified ('mean': feature values only, never a label -- the rule
+    stated on the run page and in the README). Spy: in every fold the rows the model is
+    fitted on do not change when the test rows' values and labels change."""
+    frame = timed_table()
+    grouped = spec(normalisation={"participant": mode})
+    data = run_module.prepare_data(frame, grouped)
+    for fold in run_module.folds_for(grouped, data):
+        fit_x, predict_x = _fitted_inputs(monkeypatch, data, fold, grouped.models[0])
+        moved = run_module.prepare_data(_flip_test_rows(frame, data.rows[fold.test]), grouped)
+        np.testing.assert_array_equal(moved.rows, data.rows)  # same rows: the same fold
+        moved_fit, _ = _fitted_inputs(monkeypatch, moved, fold, grouped.models[0])
+        np.testing.assert_array_equal(moved_fit, fit_x)
+        for part, seen in ((fold.train, fit_x), (fold.test, predict_x)):
+            for person in np.unique(data.participants[part]):
+                own = data.participants[part] == person
+                mine = frame.index[frame["participant"] == person.split("/")[1]]
+                if mode == "baseline":
+                    mine = mine[frame.loc[mine, "condition"] == "rest"]
+                np.testing.assert_allclose(seen[own], _expected(frame, data.rows[part][own],
+                                                                mine), rtol=1e-12)
+    assert "never their labels" in run_module.normalisation_rule("mean", "grouped_kfold")
+    assert "resting windows only" in run_module.normalisation_rule("baseline",
+                                                                   "leave_one_participant_out")
+    assert "never with its own" in run_module.normalisation_rule(mode, "within_participant_time")
+
+
+def test_a_baseline_after_the_test_part_is_refused_in_words():
+    """Under the time-ordered scheme a person whose resting windows all lie after their
+    training part cannot be normalised by 'baseline'; the error names them."""
+    frame = timed_table()
+    late = frame["participant"] == "03"
+    frame.loc[late & (frame["condition"] == "rest"), "window_start_s"] += 1000.0
+    within = spec(validation={"scheme": "within_participant_time"},
+                  normalisation={"participant": "baseline"})
+    data = run_module.prepare_data(frame, within, window_s=4.0)
+    with pytest.raises(run_module.DataError, match="s1/03 has no resting-baseline windows "
+                                                   "before their test part"):
+        run_module.folds_for(within, data)
+
+
 def test_specs_name_what_is_wrong():
     with pytest.raises(SpecError) as caught:
         TrainingSpec.from_dict({"feature_set": "x", "label": {"kind": "mood"},

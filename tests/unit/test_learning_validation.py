@@ -212,40 +212,97 @@ def test_leave_one_out_schemes_refuse_a_single_group():
 # --------------------------------------------------------------------------- within participant
 
 
-def test_within_participant_time_tests_each_participants_latest_windows():
-    """Common practice, no source: a time-ordered within-participant split trains on each
-    person's earlier windows and tests on their latest ones (here the last 25 %, rounded half
-    up: 10 of 40 and 3 of 10, computed here by sorting each participant's times). Rows are
-    shuffled so that row order and time order differ."""
+def test_within_participant_time_one_recording_leaves_a_gap_of_one_window():
+    """Sources: Roberts et al. 2017, Ecography 40:913 ("Cross-validation strategies for data
+    with temporal, spatial, hierarchical, or phylogenetic structure": blocked splits with a
+    buffer between training and test blocks) and Varoquaux et al. 2017, NeuroImage 145:166
+    (test data must be independent of training data), both from memory; the window
+    arithmetic is common practice, no source.
+
+    4 s windows with 50 % overlap (a 2 s step) on one recording per participant: windows
+    whose starts differ by less than 4 s share samples. The test part is the last 25 % of
+    each participant's windows (rounded half up: 10 of 40, 3 of 10); training windows must
+    end at least one window length (4 s) before the first test window starts, so none
+    shares a sample with any test window of the recording. Rows are shuffled so that row
+    order and time order differ."""
     rng = np.random.default_rng(9)
+    window_s, step_s = 4.0, 2.0
     sizes = {"a/p1": 40, "a/p2": 10, "b/p1": 40}
     participants = np.concatenate([np.repeat(p, n) for p, n in sizes.items()])
-    times = np.concatenate([rng.permutation(n) * 2.0 for n in sizes.values()])
+    times = np.concatenate([np.arange(n) * step_s for n in sizes.values()])
     y = rng.choice(["low", "high"], size=participants.size)
     shuffle = rng.permutation(participants.size)
     participants, times, y = participants[shuffle], times[shuffle], y[shuffle]
 
     scheme = Scheme("within_participant_time", test_share=0.25)
-    (fold,) = outer_folds(scheme, y=y, participants=participants, order=times)
-    expected = []
+    (fold,) = outer_folds(scheme, y=y, participants=participants, order=times,
+                          recordings=np.zeros(participants.size, dtype=int),
+                          window_s=window_s)
+    assert not set(fold.train.tolist()) & set(fold.test.tolist())
     for p, n_test in (("a/p1", 10), ("a/p2", 3), ("b/p1", 10)):
-        rows = np.flatnonzero(participants == p)
-        expected.extend(rows[np.argsort(times[rows])[-n_test:]])
-    np.testing.assert_array_equal(fold.test, np.sort(expected))
-    np.testing.assert_array_equal(np.sort(np.concatenate([fold.train, fold.test])),
-                                  np.arange(participants.size))
-    for p in sizes:
         own = participants == p
-        assert times[fold.test][own[fold.test]].min() > times[fold.train][own[fold.train]].max()
+        train_t, test_t = times[fold.train][own[fold.train]], times[fold.test][own[fold.test]]
+        assert test_t.size == n_test and train_t.size
+        assert np.all(test_t >= np.sort(times[own])[-n_test])  # the latest windows
+        # No training window [t, t + 4 s) overlaps any test window of the recording ...
+        ends = train_t[:, None] + window_s
+        assert np.all((ends <= test_t[None, :]) | (test_t[None, :] + window_s <= train_t[:, None]))
+        # ... and one window length of signal lies between the two parts.
+        assert train_t.max() + window_s + window_s <= test_t.min()
+        # Only the windows inside the gap are left out: 2 windows at a 2 s step.
+        assert own.sum() - train_t.size - test_t.size == int(2 * window_s / step_s) - 1
     assert fold.held_out == ("a/p1", "a/p2", "b/p1")
     assert scheme.grouped is False
     assert "not generalisation to new people" in scheme.warning
+    assert "one window length" in scheme.warning  # the rule, in the words the page shows
+    assert describe_outer(scheme, y=y, participants=participants)["splitter"] in scheme.warning
     assert all(Scheme(name).warning == "" for name in SCHEMES if name != scheme.name)
     with pytest.raises(AssertionError, match="participant 'a/p1' is in both"):
         assert_disjoint([fold], participants)
     assert_disjoint([fold], participants, scheme=scheme)  # skipped: not grouped by design
     with pytest.raises(SchemeError, match="needs order"):
         outer_folds(scheme, y=y, participants=participants)
+    with pytest.raises(SchemeError, match="pass window_s="):
+        outer_folds(scheme, y=y, participants=participants, order=times)
+    short = participants == "a/p2"
+    with pytest.raises(SchemeError, match="'a/p2' has one recording too short"):
+        outer_folds(Scheme("within_participant_time", test_share=0.75), y=y[short],
+                    participants=participants[short], order=times[short], window_s=8.0)
+
+
+def test_within_participant_time_splits_whole_recordings_and_sessions():
+    """Common practice, no source (Roberts et al. 2017, Ecography, from memory: hold out
+    whole blocks). A participant with several recordings is split by recording: each
+    recording lies wholly in the training or the test part, and the test recordings are the
+    participant's latest (highest rank); several sessions are split by session. Window start
+    times restart at 0 in every recording, so a split by start time alone would mix them."""
+    rng = np.random.default_rng(3)
+    rows = []
+    # p1: one session, 3 recordings of 10 windows; p2: 2 sessions x 2 recordings of 6.
+    for rec in range(3):
+        rows += [("s/p1", 0, rec, t * 2.0) for t in range(10)]
+    for ses in range(2):
+        for rec in range(2):
+            rows += [("s/p2", ses, 10 + 2 * ses + rec, t * 2.0) for t in range(6)]
+    participants = np.array([r[0] for r in rows])
+    sessions = np.array([r[1] for r in rows])
+    recordings = np.array([r[2] for r in rows])
+    times = np.array([r[3] for r in rows])
+    y = rng.choice(["low", "high"], size=participants.size)
+    y[:2] = ["low", "high"]
+    shuffle = rng.permutation(participants.size)
+    participants, sessions, recordings, times, y = (a[shuffle] for a in (
+        participants, sessions, recordings, times, y))
+
+    (fold,) = outer_folds(Scheme("within_participant_time", test_share=0.25), y=y,
+                          participants=participants, order=times, recordings=recordings,
+                          sessions=sessions, window_s=4.0)
+    np.testing.assert_array_equal(np.sort(np.concatenate([fold.train, fold.test])),
+                                  np.arange(participants.size))  # no gap between recordings
+    test_recordings = set(recordings[fold.test].tolist())
+    assert not test_recordings & set(recordings[fold.train].tolist())
+    assert test_recordings == {2, 12, 13}  # p1's latest recording; p2's latest session
+    assert set(sessions[fold.test][participants[fold.test] == "s/p2"].tolist()) == {1}
 
 
 # --------------------------------------------------------------------------- inner splits

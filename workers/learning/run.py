@@ -2,10 +2,13 @@
 fitting inside each outer training part only, scores and statistics.
 
 Everything fitted on data (imputation, scaling, per-site standardisation, feature choice,
-inner splits of a stacking) is fitted on the outer training rows of a fold; participant
-normalisation uses only each participant's own rows and no label of anyone.
+inner splits of a stacking) is fitted on the outer training rows of a fold. Participant
+normalisation is computed inside each fold too (:func:`participant_normalise`): each
+person's statistics come from their own windows that the fold may use, never from a label,
+and under the time-ordered scheme never from their later (test) part.
 """
 
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,8 +26,22 @@ class DataError(ValueError):
 
 
 @dataclass
-class Data:
+class Reference:
+    """Every included window, labelled or not, as participant normalisation sees it: raw
+    values, owner, place in time (recording rank, start in s) and whether it is a resting
+    baseline window (condition "rest")."""
+
     X: np.ndarray
+    participants: np.ndarray
+    recordings: np.ndarray
+    order: np.ndarray
+    rest: np.ndarray
+
+
+@dataclass
+class Data:
+    X: np.ndarray             # for a release fitted on every row: normalised by all of each
+    #                           participant's own reference windows (evaluation: fold_matrix)
     y: np.ndarray
     labels: list
     participants: np.ndarray  # "site/participant"
@@ -34,6 +51,12 @@ class Data:
     columns: list
     rows: np.ndarray          # row numbers in the feature table
     excluded: dict
+    X_raw: np.ndarray | None = None       # before participant normalisation
+    recordings: np.ndarray | None = None  # rank of the row's recording in time order
+    sessions: np.ndarray | None = None    # rank of the row's session in time order
+    window_s: float | None = None         # window length (s), for the time-ordered gap
+    normalisation: str = "none"           # spec.normalisation["participant"]
+    reference: Reference | None = None
 
 
 def _label_values(table, spec):
@@ -47,8 +70,28 @@ def _label_values(table, spec):
     return values
 
 
-def prepare_data(table, spec):
-    """Rows, label and features chosen by the spec, with participant normalisation applied."""
+def _natural(value):
+    """Sort key of a BIDS label in natural order ("2" before "10"); empty or missing first."""
+    import pandas as pd
+
+    text = "" if value is None or (not isinstance(value, str) and pd.isna(value)) else str(value)
+    return tuple((0, int(part), "") if part.isdigit() else (1, 0, part)
+                 for part in re.findall(r"\d+|\D+", text))
+
+
+def _ranks(frame, columns):
+    """Per row, the rank of its (columns) in natural sort order: the time order Cairn can
+    know from BIDS labels (session, then run, then file name)."""
+    keys = list(frame[columns].itertuples(index=False, name=None))
+    natural = {key: tuple(_natural(v) for v in key) for key in set(keys)}
+    rank = {key: i for i, key in enumerate(sorted(natural, key=natural.get))}
+    return np.array([rank[key] for key in keys], dtype=np.intp)
+
+
+def prepare_data(table, spec, *, window_s=None):
+    """Rows, label and features chosen by the spec. ``X`` is normalised by participant as a
+    release fitted on every row is; evaluation normalises inside each fold
+    (:func:`fold_matrix`). ``window_s`` is the feature set's window length (s)."""
     import pandas as pd
 
     excluded = {}
@@ -68,45 +111,107 @@ def prepare_data(table, spec):
 
     columns = select_columns(feature_columns(table.columns), spec.features)
     frame = table[keep].copy()
-    values = frame[columns].to_numpy(dtype=float)
+    raw = frame[columns].to_numpy(dtype=float)
     people = (frame["site"].astype(str) + "/" + frame["participant"].astype(str)).to_numpy()
-
-    mode = spec.normalisation["participant"]
-    if mode != "none":
-        values = values.copy()
-        conditions = frame["condition"].astype(object).to_numpy()
-        for person in np.unique(people):
-            mine = people == person
-            if mode == "baseline":
-                reference = mine & (conditions == "rest")
-                if not reference.any():
-                    raise DataError(f"participant {person} has no resting-baseline windows; "
-                                    "use normalisation 'mean' or include their rest block")
-            else:
-                reference = mine
-            centre = np.nanmean(values[reference], axis=0)
-            spread = np.nanstd(values[reference], axis=0)
-            spread = np.where(np.isfinite(spread) & (spread > 0), spread, 1.0)
-            values[mine] = (values[mine] - np.nan_to_num(centre)) / spread
+    recordings = _ranks(frame, ["site", "participant", "session", "run", "recording"])
+    sessions = _ranks(frame, ["site", "participant", "session"])
+    order = frame["window_start_s"].to_numpy(dtype=float)
 
     y = _label_values(frame, spec).to_numpy(dtype=object)
-    labelled = np.array([v is not None and v == v and v != "" for v in y])
+    labelled = np.array([v is not None and v == v and v != "" for v in y], dtype=bool)
     if spec.label.get("classes"):
         labelled &= np.isin(y.astype(str), spec.label["classes"])
     excluded["no label of the chosen kind"] = int((~labelled).sum())
-    frame = frame[labelled]
-    values, y, people = values[labelled], y[labelled].astype(str), people[labelled]
+    reference = Reference(X=raw, participants=people, recordings=recordings, order=order,
+                          rest=(frame["condition"].astype(object) == "rest").to_numpy())
+    labelled_frame = frame[labelled]
+    y = y[labelled].astype(str)
     present = sorted(set(y.tolist()), key=lambda v: (LEVEL_ORDER.index(v)
                                                      if v in LEVEL_ORDER else 9, v))
     if len(present) < 2:
         raise DataError(f"only {len(present)} class ({', '.join(present) or 'none'}) left "
                         "after the inclusion rules; a classifier needs at least 2")
-    blocks = (frame["site"].astype(str) + "/" + frame["recording"].astype(str) + "@"
-              + frame["block_onset_s"].astype(str)).to_numpy()
-    return Data(X=values, y=y, labels=present, participants=people,
-                sites=frame["site"].astype(str).to_numpy(), blocks=blocks,
-                order=frame["window_start_s"].to_numpy(dtype=float), columns=columns,
-                rows=frame.index.to_numpy(), excluded=excluded)
+    blocks = (labelled_frame["site"].astype(str) + "/" + labelled_frame["recording"].astype(str)
+              + "@" + labelled_frame["block_onset_s"].astype(str)).to_numpy()
+    data = Data(X=raw[labelled], y=y, labels=present, participants=people[labelled],
+                sites=labelled_frame["site"].astype(str).to_numpy(), blocks=blocks,
+                order=order[labelled], columns=columns, rows=labelled_frame.index.to_numpy(),
+                excluded=excluded, X_raw=raw[labelled], recordings=recordings[labelled],
+                sessions=sessions[labelled], window_s=None if window_s is None
+                else float(window_s), normalisation=spec.normalisation["participant"],
+                reference=reference)
+    data.X = participant_normalise(data)
+    return data
+
+
+def normalisation_rule(mode, scheme_name):
+    """What participant normalisation does in each fold, in words for the run page ("" for
+    none)."""
+    if mode == "none":
+        return ""
+    own = ("their own resting-baseline windows (condition 'rest')" if mode == "baseline"
+           else "their own windows")
+    words = (f"Participant normalisation ({mode}), inside each fold, without any label: each "
+             f"person's features are centred on the mean and divided by the SD of {own}")
+    if scheme_name == "within_participant_time":
+        return (f"{words} in their training (earlier) part; their test (later) part is "
+                "normalised with those same statistics, never with its own.")
+    held_out = ("their resting windows only" if mode == "baseline"
+                else "the windows being classified: their feature values, never their labels, "
+                     "as a release is used on a new person's recording (choose 'baseline' to "
+                     "use their resting windows only)")
+    return (f"{words}; for a training person these are in the training part, for a held-out "
+            f"person {held_out}.")
+
+
+def reference_windows(data, person, fold=None):
+    """Indices (into ``data.reference``) of the windows whose statistics normalise
+    ``person``'s rows in ``fold`` (``None``: a release fitted on every row).
+
+    All of the person's own included windows ("mean") or their resting windows
+    ("baseline"); when the person is on both sides of the fold (time-ordered scheme), only
+    those no later than their last training window (recording rank, then start)."""
+    ref = data.reference
+    mine = ref.participants == person
+    if data.normalisation == "baseline":
+        mine &= ref.rest
+    if fold is not None:
+        own = data.participants == person
+        train, test = fold.train[own[fold.train]], fold.test[own[fold.test]]
+        if train.size and test.size:
+            last = train[np.lexsort((data.order[train], data.recordings[train]))[-1]]
+            rank, start = data.recordings[last], data.order[last]
+            mine &= (ref.recordings < rank) | ((ref.recordings == rank) & (ref.order <= start))
+    return np.flatnonzero(mine)
+
+
+def participant_normalise(data, fold=None):
+    """``data.X_raw`` with each participant's rows centred and scaled by the statistics of
+    their :func:`reference_windows` in ``fold``; raises DataError naming a participant who
+    has none."""
+    if data.normalisation == "none":
+        return data.X_raw
+    out = np.array(data.X_raw, dtype=float, copy=True)
+    for person in np.unique(data.participants):
+        windows = reference_windows(data, person, fold)
+        if not windows.size:
+            where = " before their test part (time order)" if fold is not None else ""
+            raise DataError(f"participant {person} has no resting-baseline windows{where}; "
+                            "use normalisation 'mean' or include their rest block")
+        values = data.reference.X[windows]
+        centre = np.nanmean(values, axis=0)
+        spread = np.nanstd(values, axis=0)
+        spread = np.where(np.isfinite(spread) & (spread > 0), spread, 1.0)
+        rows = data.participants == person
+        out[rows] = (data.X_raw[rows] - np.nan_to_num(centre)) / spread
+    return out
+
+
+def fold_matrix(data, fold, *, site_standardise_on=False):
+    """The features a fold fits and predicts on: participant normalisation and per-site
+    standardisation with the statistics this fold may use."""
+    X = participant_normalise(data, fold) if data.normalisation != "none" else data.X
+    return site_standardise(X, data.sites, fold.train) if site_standardise_on else X
 
 
 def check_classes(data, scheme):
@@ -130,9 +235,15 @@ def scheme_of(spec):
 def folds_for(spec, data, scheme=None, seed=None):
     scheme = scheme or scheme_of(spec)
     check_classes(data, scheme)
-    return validation.outer_folds(scheme, y=data.y, participants=data.participants,
-                                  sites=data.sites, order=data.order,
-                                  seed=spec.seed if seed is None else seed)
+    folds = validation.outer_folds(scheme, y=data.y, participants=data.participants,
+                                   sites=data.sites, order=data.order,
+                                   recordings=data.recordings, sessions=data.sessions,
+                                   window_s=data.window_s,
+                                   seed=spec.seed if seed is None else seed)
+    if data.normalisation != "none":
+        for fold in folds:  # a participant without reference windows fails here, in words
+            participant_normalise(data, fold)
+    return folds
 
 
 def build_estimator(model, *, seed):
@@ -189,7 +300,7 @@ def site_standardise(X, sites, train):
 
 def fit_fold(model, data, fold, *, seed, site_standardise_on=False):
     """Fit on the fold's training rows, predict its test rows. Returns (estimator, y_pred)."""
-    X = site_standardise(data.X, data.sites, fold.train) if site_standardise_on else data.X
+    X = fold_matrix(data, fold, site_standardise_on=site_standardise_on)
     estimator = build_estimator(model, seed=seed)
     kwargs = {"model__groups": data.participants[fold.train]} if needs_groups(model) else {}
     estimator.fit(X[fold.train], data.y[fold.train], **kwargs)

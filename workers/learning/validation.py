@@ -17,8 +17,13 @@ Schemes (``SCHEMES``):
 ``leave_one_site_out``
     one fold per site (``LeaveOneGroupOut`` on sites);
 ``within_participant_time``
-    one fold: the latest ``test_share`` of every participant's windows (time order) are the
-    test part. Not grouped: it measures recognition of known people.
+    one fold of each participant's later data (time order). A participant with several
+    sessions gives their latest sessions, one with several recordings (one session) their
+    latest recordings, whole, about ``test_share`` of their windows; a participant with one
+    recording gives the last ``test_share`` of its windows, and the windows that start less
+    than two window lengths before the test part are left out, so that one window length of
+    signal separates the training part from the test part (with overlapping windows,
+    neighbours share samples). Not grouped: it measures recognition of known people.
 """
 
 from __future__ import annotations
@@ -37,9 +42,23 @@ SCHEMES = (
 )
 
 _WITHIN_WARNING = (
-    "Within-participant validation tests on later windows of the same people the model was "
+    "Within-participant validation tests on later data of the same people the model was "
     "trained on: it measures recognition of known people, not generalisation to new people."
 )
+WITHIN_RULE = (
+    "Split: each participant's later sessions (or, with one session, later recordings) in "
+    "the order of their session, run and file name are the test part, whole; a participant "
+    "with a single recording is tested on its last windows, and the windows less than one "
+    "window length before them are left out, so that no training window shares a sample "
+    "with a test window."
+)
+
+
+def warning_of(scheme_name) -> str:
+    """The sentence a report must carry for a scheme that does not test new people, else
+    "" (also for a name that is not a scheme)."""
+    return f"{_WITHIN_WARNING} {WITHIN_RULE}" if scheme_name == "within_participant_time" \
+        else ""
 
 
 class SchemeError(ValueError):
@@ -49,7 +68,8 @@ class SchemeError(ValueError):
 
 @dataclass(frozen=True)
 class Fold:
-    """One outer fold: sorted row indices of its training and test parts."""
+    """One outer fold: sorted row indices of its training and test parts (rows in neither,
+    e.g. the gap of a time-ordered split, are left out of the fold)."""
 
     index: int
     repeat: int
@@ -86,7 +106,7 @@ class Scheme:
     @property
     def warning(self) -> str:
         """A sentence for the report when the scheme does not test new people, else ""."""
-        return _WITHIN_WARNING if self.name == "within_participant_time" else ""
+        return warning_of(self.name)
 
     @property
     def grouped(self) -> bool:
@@ -200,7 +220,7 @@ def describe_outer(scheme: Scheme, *, y, participants, sites=None, order=None,
         n_folds = scheme.n_splits * scheme.n_repeats
     else:
         group_by, n_groups = None, int(np.unique(participants).size)
-        n_folds, splitter = 1, "last share of each participant's windows in time order"
+        n_folds, splitter = 1, WITHIN_RULE
     return {
         "scheme": name,
         "grouped": scheme.grouped,
@@ -255,7 +275,36 @@ def _grouped_kfold(scheme, y, participants, seed):
     return folds
 
 
-def _within_participant_time(scheme, participants, order):
+def _per_row(values, n_rows, field):
+    if values is None:
+        return None
+    arr = np.asarray(values)
+    if arr.ndim != 1 or arr.shape[0] != n_rows:
+        raise SchemeError(f"{field} must have one value per row ({n_rows}), got shape {arr.shape}")
+    return arr
+
+
+def _n_test(share, n_rows):
+    """Round half up, and keep at least one row on each side."""
+    return min(max(int(math.floor(share * n_rows + 0.5)), 1), n_rows - 1)
+
+
+def _later_units(units, share):
+    """Rows of the latest units (sorted ids = time order) holding about ``share`` of the
+    rows: units are added from the latest until they hold the rounded share, leaving at
+    least one unit for training."""
+    ids, counts = np.unique(units, return_counts=True)
+    wanted = _n_test(share, int(counts.sum()))
+    taken, n_taken = [], 0
+    for unit, count in zip(ids[::-1], counts[::-1], strict=True):
+        if n_taken >= wanted or len(taken) == ids.size - 1:
+            break
+        taken.append(unit)
+        n_taken += int(count)
+    return np.isin(units, taken)
+
+
+def _within_participant_time(scheme, y, participants, order, recordings, sessions, window_s):
     if order is None:
         raise SchemeError(
             "within_participant_time needs order (e.g. each window's start time) to know "
@@ -266,33 +315,60 @@ def _within_participant_time(scheme, participants, order):
             f"order must have one value per row ({participants.size}), got shape {order.shape}")
     if np.issubdtype(order.dtype, np.number) and not np.all(np.isfinite(order)):
         raise SchemeError("order contains NaN or infinite values; give a time for every row")
-    test_rows = []
+    recordings = _per_row(recordings, participants.size, "recordings")
+    sessions = _per_row(sessions, participants.size, "sessions")
+    is_test = np.zeros(participants.size, dtype=bool)
+    is_train = np.zeros(participants.size, dtype=bool)
     for participant in np.unique(participants):
         rows = np.flatnonzero(participants == participant)
         if rows.size < 2:
             raise SchemeError(
                 f"within_participant_time needs at least 2 windows per participant; "
                 f"participant {str(participant)!r} has {rows.size}")
-        # Round half up, and keep at least one window on each side.
-        n_test = int(math.floor(scheme.test_share * rows.size + 0.5))
-        n_test = min(max(n_test, 1), rows.size - 1)
-        by_time = rows[np.argsort(order[rows], kind="stable")]
-        test_rows.append(by_time[-n_test:])
-    test = np.concatenate(test_rows)
-    is_test = np.zeros(participants.size, dtype=bool)
-    is_test[test] = True
-    return [_fold(0, 0, np.flatnonzero(~is_test), np.flatnonzero(is_test),
-                  _sorted_unique(participants[is_test]))]
+        units = None
+        for values in (sessions, recordings):
+            if values is not None and np.unique(values[rows]).size > 1:
+                units = values[rows]
+                break
+        if units is not None:
+            later = _later_units(units, scheme.test_share)
+            is_test[rows[later]] = True
+            is_train[rows[~later]] = True
+            continue
+        if window_s is None or not float(window_s) > 0:
+            raise SchemeError(
+                f"within_participant_time: participant {str(participant)!r} has one recording, "
+                "so its windows are split in time with a gap of one window length; pass "
+                "window_s= (the window length in s, > 0)")
+        times = order[rows].astype(float)
+        by_time = np.sort(times)
+        start = by_time[-_n_test(scheme.test_share, rows.size)]
+        train = times + 2.0 * float(window_s) <= start  # its end + one window length
+        if not train.any():
+            raise SchemeError(
+                f"within_participant_time: participant {str(participant)!r} has one recording "
+                f"too short to leave a gap of one window length ({float(window_s):g} s) "
+                f"before their last {scheme.test_share:g} of windows; give a smaller "
+                "test_share or record longer")
+        is_test[rows[times >= start]] = True
+        is_train[rows[train]] = True
+    folds = [_fold(0, 0, np.flatnonzero(is_train), np.flatnonzero(is_test),
+                   _sorted_unique(participants[is_test]))]
+    _check_training_classes(folds, y, participants, "within_participant_time")
+    return folds
 
 
-def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None,
-                seed=0) -> list[Fold]:
+def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None, recordings=None,
+                sessions=None, window_s=None, seed=0) -> list[Fold]:
     """The outer folds of ``scheme`` on these rows.
 
     ``participants`` are per-row ids, unique across sites (the caller writes
-    "site/participant"); ``sites`` per-row site ids (needed for ``leave_one_site_out``);
-    ``order`` per-row times (needed for ``within_participant_time``). Raises
-    :class:`SchemeError` when the data cannot support the scheme.
+    "site/participant"); ``sites`` per-row site ids (needed for ``leave_one_site_out``).
+    ``within_participant_time`` needs ``order`` (each window's start in its recording, s),
+    and uses ``sessions`` and ``recordings`` (per-row ids whose sorted order is their time
+    order, e.g. ranks) to split whole sessions or recordings, and ``window_s`` (window
+    length, s) for the gap within a single recording. Rows in that gap are in neither part.
+    Raises :class:`SchemeError` when the data cannot support the scheme.
     """
     if not isinstance(scheme, Scheme):
         raise SchemeError(f"scheme must be a Scheme, got {type(scheme).__name__}")
@@ -307,7 +383,8 @@ def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None,
         return _leave_one_group_out(y, participants, "participant", name)
     if name == "grouped_kfold":
         return _grouped_kfold(scheme, y, participants, int(seed))
-    return _within_participant_time(scheme, participants, order)
+    return _within_participant_time(scheme, y, participants, order, recordings, sessions,
+                                    window_s)
 
 
 # --------------------------------------------------------------------------- inner splits

@@ -46,20 +46,23 @@ def _table(sha256):
 
 
 @lru_cache(maxsize=4)
-def _prepared(sha256, spec_json):
+def _prepared(sha256, spec_json, window_s):
     from workers.learning.run import prepare_data
     from workers.learning.spec import TrainingSpec
 
     spec = TrainingSpec.from_dict(json.loads(spec_json))
-    return spec, prepare_data(_table(sha256), spec)
+    return spec, prepare_data(_table(sha256), spec, window_s=window_s)
 
 
 def load(run):
-    """(spec, data) of a run, cached per worker process."""
+    """(spec, data) of a run, cached per worker process; the feature set's window length
+    goes with the data (the time-ordered split's gap)."""
     from workers.learning.run import DataError
 
+    window_s = (run.feature_set.params.get("preprocessing") or {}).get("window_s")
     try:
-        return _prepared(run.feature_set.table_sha256, json.dumps(run.spec, sort_keys=True))
+        return _prepared(run.feature_set.table_sha256, json.dumps(run.spec, sort_keys=True),
+                         window_s)
     except DataError as exc:
         raise JobError(str(exc)) from None
 
@@ -104,18 +107,24 @@ def run_run(ctx):
     if isinstance(layout["paired"], list):
         jobs += [(m.name, f.index, "paired") for m in _paired_models(spec, layout["pairs"])
                  for f in layout["paired"]]
-    from workers.learning.run import scheme_of
+    from workers.learning.run import normalisation_rule, scheme_of
 
+    scheme = scheme_of(spec)
+    outer = layout["outer"]
     summary = {"rows": int(data.X.shape[0]), "features": len(data.columns),
                "classes": {label: int((data.y == label).sum()) for label in data.labels},
                "participants": int(len(set(data.participants.tolist()))),
                "sites": sorted(set(data.sites.tolist())), "excluded_rows": data.excluded,
-               "outer_folds": len(layout["outer"]),
+               "outer_folds": len(outer),
                "paired_folds": (len(layout["paired"]) if isinstance(layout["paired"], list)
-                                else layout["paired"])}
+                                else layout["paired"]),
+               "left_out_in_gaps": int(len(data.y) - outer[0].train.size - outer[0].test.size)
+               if not scheme.grouped else 0,
+               "normalisation_rule": normalisation_rule(spec.normalisation["participant"],
+                                                        scheme.name)}
     with ctx.finish() as job:
         TrainingRun.objects.filter(pk=run.pk).update(
-            n_expected=len(jobs), data_summary=summary, warning=scheme_of(spec).warning)
+            n_expected=len(jobs), data_summary=summary, warning=scheme.warning)
         for model, fold, purpose in jobs:
             enqueue("training.fold", target=run, study=run.study,
                     params={"run": run.pk, "model": model, "fold": fold, "purpose": purpose})
