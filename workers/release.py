@@ -35,6 +35,19 @@ def _fmt(summary):
     return f"{summary['mean']:.3f} ± {sd:.3f} SD" if sd is not None else f"{summary['mean']:.3f}"
 
 
+def _scheme_warning(scores):
+    """The run page's warning for a validation that did not test new people (this model's
+    or, quoted on the card, the pooled model's), followed by a space; else ""."""
+    from workers.learning.validation import warning_of
+
+    for item in (scores, scores.get("pooled_model") or {}):
+        scheme = item.get("scheme")
+        warning = warning_of(scheme.get("scheme") if isinstance(scheme, dict) else scheme)
+        if warning:
+            return f"{warning} "
+    return ""
+
+
 def model_card(estimator, *, name, kind, training, scores, caution, trusted, site=None):
     """The model card as Markdown (skops' card support)."""
     from skops import card
@@ -72,8 +85,9 @@ def model_card(estimator, *, name, kind, training, scores, caution, trusted, sit
         "Evaluation/Per site": "; ".join(
             f"{s}: balanced accuracy {v['balanced_accuracy']:.3f} on {v['n']} held-out windows"
             for s, v in sorted(scores["per_site"].items())) or "one site",
-        "Cautions": caution + " Scores were measured on the consortium's participants and "
-                    "equipment; they may not hold for other people, amplifiers or tasks.",
+        "Cautions": _scheme_warning(scores) + caution + " Scores were measured on the "
+                    "consortium's participants and equipment; they may not hold for other "
+                    "people, amplifiers or tasks.",
         "How to load": (
             "Check the sha256 in features.json, then `skops.io.load('model.skops', "
             f"trusted={json.dumps(trusted)})` — review this list before trusting it. "
