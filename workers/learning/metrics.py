@@ -1,5 +1,6 @@
-"""Scores and the statistics around them: chance levels, spreads, block permutation tests,
-participant bootstrap intervals and the corrected resampled t-test.
+"""Scores and the statistics around them: chance levels, spreads, block permutation tests
+(also of choosing the best of several models), participant bootstrap intervals, the
+corrected resampled t-test and Holm's adjustment.
 
 Scores come from :mod:`sklearn.metrics`. Undefined values follow scikit-learn: a recall or F1
 whose denominator is zero is 0 (``zero_division=0``; look at ``support`` to tell such a 0
@@ -215,22 +216,9 @@ def summarise(values) -> dict:
 # --------------------------------------------------------------------------- permutation test
 
 
-def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutations=200, seed=0,
-                           metric="balanced_accuracy", observed=None, labels=None) -> dict:
-    """Permutation test of a whole cross-validation, permuting labels block by block.
-
-    ``y`` must be constant within each block (e.g. a recording or a condition block of one
-    participant); each permutation shuffles the block labels across blocks and gives every
-    window its block's new label, so windows of a block stay together and the participant
-    grouping (which rows belong to whom, hence the caller's folds) is unchanged.
-    ``predict_fn(y_permuted) -> y_pred`` runs the caller's whole cross-validation on the
-    permuted labels and returns out-of-fold predictions for every row. ``observed`` is the
-    score on the true labels (computed with ``predict_fn(y)`` when not given).
-
-    p = (1 + #{null >= observed}) / (1 + n_permutations) (Phipson & Smyth 2010): never 0,
-    at least ``1 / (1 + n_permutations)``. Returns ``{"p_value", "observed", "null_mean",
-    "null_sd", "n_permutations", "n_blocks", "null"}``.
-    """
+def _block_design(y, blocks, participants):
+    """(block label per block, block index per row) after checking that every block has one
+    label and one participant."""
     y = _as_1d(y, "y")
     blocks = _as_1d(blocks, "blocks")
     participants = _as_1d(participants, "participants")
@@ -239,12 +227,6 @@ def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutation
                          f"{y.size}, {blocks.size} and {participants.size}")
     if y.size == 0:
         raise ValueError("y is empty; the permutation test needs rows")
-    if isinstance(n_permutations, bool) or not isinstance(n_permutations, int | np.integer) \
-            or n_permutations < 1:
-        raise ValueError(f"n_permutations must be a positive integer, got {n_permutations!r}")
-    labels_all = np.unique(y) if labels is None else _labels(labels)
-    score = _metric_fn(metric, labels_all)
-
     block_ids, block_of_row = np.unique(blocks.astype(str), return_inverse=True)
     block_label = np.empty(block_ids.size, dtype=y.dtype)
     for b, block in enumerate(block_ids):
@@ -262,26 +244,180 @@ def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutation
         block_label[b] = values[0]
     if block_ids.size < 2:
         raise ValueError("blocks: the permutation test needs at least 2 blocks")
+    return block_label, block_of_row
+
+
+def _check_count(n_permutations):
+    if isinstance(n_permutations, bool) or not isinstance(n_permutations, int | np.integer) \
+            or n_permutations < 1:
+        raise ValueError(f"n_permutations must be a positive integer, got {n_permutations!r}")
+    return int(n_permutations)
+
+
+def smallest_p(n_permutations) -> float:
+    """The smallest p-value ``n_permutations`` permutations can give: 1 / (n + 1)."""
+    return 1.0 / (1.0 + _check_count(n_permutations))
+
+
+def _p(null, observed):
+    n_ge = int(np.sum(null >= observed - 1e-12))  # ties count against the observed score
+    return (1.0 + n_ge) / (1.0 + null.size)
+
+
+def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutations=200, seed=0,
+                           metric="balanced_accuracy", observed=None, labels=None) -> dict:
+    """Permutation test of a whole cross-validation, permuting labels block by block.
+
+    ``y`` must be constant within each block (e.g. a recording or a condition block of one
+    participant); each permutation shuffles the block labels across blocks and gives every
+    window its block's new label, so windows of a block stay together and the participant
+    grouping (which rows belong to whom, hence the caller's folds) is unchanged.
+    ``predict_fn(y_permuted) -> y_pred`` runs the caller's whole cross-validation on the
+    permuted labels and returns out-of-fold predictions for every row. ``observed`` is the
+    score on the true labels (computed with ``predict_fn(y)`` when not given).
+
+    p = (1 + #{null >= observed}) / (1 + n_permutations) (Phipson & Smyth 2010): never 0,
+    at least ``1 / (1 + n_permutations)`` (``min_p_value``). Returns ``{"p_value",
+    "min_p_value", "observed", "null_mean", "null_sd", "n_permutations", "n_blocks",
+    "null"}``.
+    """
+    out = selection_permutation_test(lambda y_perm, _k: predict_fn(y_perm), y, blocks,
+                                     participants, n_models=1, chosen=0,
+                                     n_permutations=n_permutations, seed=seed, metric=metric,
+                                     observed=observed, labels=labels)
+    for key in ("naive_p_value", "n_models", "n_fitted", "n_stopped_early"):
+        out.pop(key)
+    return out
+
+
+def selection_permutation_test(predict_model, y, blocks, participants, *, n_models, chosen,
+                               n_permutations=200, seed=0, metric="balanced_accuracy",
+                               observed=None, labels=None, scored=None,
+                               stop_early=True) -> dict:
+    """Permutation test of choosing the best of several models, permuting whole blocks.
+
+    ``predict_model(y_permuted, k)`` runs candidate ``k``'s whole cross-validation on the
+    given labels and returns its out-of-fold predictions; ``chosen`` is the index of the
+    candidate selected on the true labels and ``observed`` its score (computed when not
+    given). Each permutation repeats the selection: its null value is the best score of all
+    ``n_models`` candidates on the permuted labels (the max statistic of Westfall & Young
+    1993, from memory), so the p-value accounts for having looked at every candidate and
+    kept the best (Cawley & Talbot 2010, from memory). Blocks are permuted as in
+    :func:`block_permutation_test`, with the same random sequence for the same seed.
+
+    The same permutations give the naive p-value of the chosen model alone
+    (``naive_p_value``, what a test ignoring the selection reports); since the best of all
+    candidates is never below the chosen one, ``p_value >= naive_p_value``. Both follow
+    Phipson & Smyth (2010): (1 + #{null >= observed}) / (1 + n_permutations).
+
+    Cost: at most ``n_permutations × n_models`` cross-validations. The chosen model is run
+    on every permutation, then the others in index order; with ``stop_early`` a permutation
+    stops as soon as one candidate reaches the observed score, because the best can then
+    only stay at or above it and p counts nothing more (the p-values are exactly those of
+    running every candidate). ``null_mean``, ``null_sd`` and ``null`` describe the chosen
+    model's null scores; ``n_fitted`` counts the cross-validations run.
+
+    ``scored`` (a boolean mask, default all rows) names the rows whose predictions count,
+    e.g. the rows some test part covers when the folds do not cover every row; every block
+    is permuted all the same.
+    """
+    y = _as_1d(y, "y")
+    n_permutations = _check_count(n_permutations)
+    if isinstance(n_models, bool) or not isinstance(n_models, int | np.integer) or n_models < 1:
+        raise ValueError(f"n_models must be a positive integer, got {n_models!r}")
+    if isinstance(chosen, bool) or not isinstance(chosen, int | np.integer) \
+            or not 0 <= chosen < n_models:
+        raise ValueError(f"chosen must index one of the {n_models} models, got {chosen!r}")
+    block_label, block_of_row = _block_design(y, blocks, participants)
+    labels_all = np.unique(y) if labels is None else _labels(labels)
+    score = _metric_fn(metric, labels_all)
+    scored = np.ones(y.size, dtype=bool) if scored is None else np.asarray(scored, dtype=bool)
+    if scored.shape != y.shape or not scored.any():
+        raise ValueError(f"scored must be a mask of the {y.size} rows with at least one True")
+
+    def score_of(y_labels, k):
+        return score(y_labels[scored], np.asarray(predict_model(y_labels, k))[scored])
 
     if observed is None:
-        observed = score(y, np.asarray(predict_fn(y.copy())))
+        observed = score_of(y.copy(), int(chosen))
     observed = float(observed)
+    others = [k for k in range(int(n_models)) if k != chosen]
 
     rng = np.random.default_rng(seed)
-    null = np.empty(int(n_permutations))
-    for i in range(int(n_permutations)):
-        y_perm = block_label[rng.permutation(block_ids.size)][block_of_row]
-        null[i] = score(y_perm, np.asarray(predict_fn(y_perm)))
-    n_ge = int(np.sum(null >= observed - 1e-12))  # ties count against the observed score
+    naive = np.empty(n_permutations)
+    best = np.empty(n_permutations)
+    fitted = stopped = 0
+    for i in range(n_permutations):
+        y_perm = block_label[rng.permutation(block_label.size)][block_of_row]
+        naive[i] = best[i] = score_of(y_perm, int(chosen))
+        fitted += 1
+        for k in others:
+            if stop_early and best[i] >= observed - 1e-12:
+                stopped += 1
+                break
+            best[i] = max(best[i], score_of(y_perm, k))
+            fitted += 1
     return {
-        "p_value": (1.0 + n_ge) / (1.0 + null.size),
+        "p_value": _p(best, observed),
+        "naive_p_value": _p(naive, observed),
+        "min_p_value": 1.0 / (1.0 + n_permutations),
         "observed": observed,
-        "null_mean": float(null.mean()),
-        "null_sd": float(null.std(ddof=1)) if null.size > 1 else None,
-        "n_permutations": int(null.size),
-        "n_blocks": int(block_ids.size),
-        "null": null.tolist(),
+        "null_mean": float(naive.mean()),
+        "null_sd": float(naive.std(ddof=1)) if naive.size > 1 else None,
+        "n_permutations": n_permutations,
+        "n_models": int(n_models),
+        "n_fitted": fitted,
+        "n_stopped_early": stopped,
+        "n_blocks": int(block_label.size),
+        "null": naive.tolist(),
     }
+
+
+def holm(p_values) -> list:
+    """Holm's (1979) step-down adjustment of several p-values (from memory): sorted
+    ascending, the i-th (from 0) becomes max over j <= i of min(1, (m - j) p_(j)). NaN counts
+    as 1 (no evidence)."""
+    p = np.nan_to_num(np.asarray(p_values, dtype=float), nan=1.0)
+    m = p.size
+    order = np.argsort(p, kind="stable")
+    adjusted = np.empty(m)
+    running = 0.0
+    for rank, i in enumerate(order):
+        running = max(running, min(1.0, (m - rank) * p[i]))
+        adjusted[i] = running
+    return adjusted.tolist()
+
+
+def selection_report(fold_scores, *, chosen, n_train, n_test, alpha=0.05) -> dict:
+    """Whether the chosen model's lead over each other candidate is measurable.
+
+    ``fold_scores`` maps each candidate to its scores on the same folds (same order). Each
+    other candidate is compared with the chosen one by :func:`paired_comparison` (the
+    corrected resampled t-test, Nadeau & Bengio 2003); the p-values are adjusted with
+    :func:`holm` over the comparisons, and a lead counts as measurable when the chosen model
+    is ahead and the adjusted p is below ``alpha`` (0.05: common practice, no source).
+    Returns ``{"chosen", "n_compared", "alpha", "comparisons", "no_measurable_difference"}``;
+    the last lists the candidates the test cannot tell from the chosen one.
+    """
+    if chosen not in fold_scores:
+        raise ValueError(f"chosen model {chosen!r} is not among the candidates "
+                         f"{', '.join(map(str, fold_scores))}")
+    others = [name for name in fold_scores if name != chosen]
+    comparisons = []
+    for name in others:
+        result = paired_comparison(fold_scores[chosen], fold_scores[name], n_train=n_train,
+                                   n_test=n_test)
+        comparisons.append({"model": name, "mean_difference": result["mean_difference"],
+                            "t": result["t"], "p_value": result["p_value"],
+                            "n_folds": result["n_folds"], "caution": result["caution"]})
+    for item, adjusted in zip(comparisons, holm([c["p_value"] for c in comparisons]),
+                              strict=True):
+        item["p_adjusted"] = adjusted
+        item["measurable"] = bool(item["mean_difference"] > 0 and adjusted < alpha)
+    return {"chosen": chosen, "n_compared": len(fold_scores), "alpha": float(alpha),
+            "comparisons": comparisons,
+            "no_measurable_difference": [c["model"] for c in comparisons
+                                         if not c["measurable"]]}
 
 
 # --------------------------------------------------------------------------- bootstrap
