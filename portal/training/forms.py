@@ -1,3 +1,5 @@
+"""The training form: a comparison run from a few choices, or a whole spec as JSON."""
+
 import json
 
 from django import forms
@@ -55,8 +57,12 @@ class TrainingForm(forms.Form):
     paired_test = forms.BooleanField(required=False, initial=True,
                                      label="Compare ensembles with their learners "
                                            "(repeated 5 × 5 grouped folds)")
-    permutations = forms.IntegerField(min_value=0, max_value=1000, initial=0,
-                                      label="Block permutations for the p-value (0: none)")
+    permutations = forms.IntegerField(
+        min_value=0, max_value=1000, initial=200,
+        label="Block permutations for the p-value (0: none)",
+        help_text="The smallest p n permutations can give is 1/(n + 1): 200 allow 0.005. "
+                  "Each permutation repeats the choice among all models, so it costs up to "
+                  "one fit per model and fold.")
     per_site = forms.BooleanField(required=False, label="Also release a model per site")
     seed = forms.IntegerField(initial=0, label="Seed")
     spec_json = forms.CharField(required=False, widget=forms.Textarea(attrs={"rows": 6}),

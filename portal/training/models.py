@@ -64,8 +64,10 @@ class ReleaseState(models.TextChoices):
 
 
 class ModelRelease(models.Model):
-    """A final model fitted on all included data, saved with skops, with its model card and
-    the feature specification needed to compute its inputs."""
+    """A final model fitted on all included data, saved with skops, with its model card, the
+    feature specification needed to compute its inputs, and one archive of them all with the
+    requirements to install (what a site downloads). ``scores`` is the evaluation of exactly
+    this model (a site-only model's own, or none), see ``workers/tasks/training.py``."""
 
     run = models.ForeignKey(TrainingRun, on_delete=models.PROTECT, related_name="releases")
     model = models.CharField(max_length=120)
@@ -76,6 +78,7 @@ class ModelRelease(models.Model):
     model_digest = models.CharField(max_length=64)
     card_sha256 = models.CharField(max_length=64)
     spec_sha256 = models.CharField(max_length=64)
+    bundle_sha256 = models.CharField(max_length=64)
     trusted_types = models.JSONField(default=list)
     scores = models.JSONField(default=dict)
     state = models.CharField(max_length=8, choices=ReleaseState.choices,

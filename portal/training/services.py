@@ -13,7 +13,7 @@ from portal.jobs.services import enqueue, jobs_about, state_with_failures
 from portal.training.models import ModelRelease, ReleaseState, TrainingRun
 
 #: Must equal ``workers.learning.CODE_VERSION`` (a test checks).
-TRAINING_CODE_VERSION = "learning-2"
+TRAINING_CODE_VERSION = "learning-3"
 
 
 class TrainingRequestError(ValueError):

@@ -36,9 +36,12 @@ from portal.training.services import (
     status_of,
 )
 
-RELEASE_PARTS = {"model": ("model.skops", "application/octet-stream", "model_sha256"),
-                 "card": ("model-card.md", "text/markdown", "card_sha256"),
-                 "spec": ("features.json", "application/json", "spec_sha256")}
+#: part -> (file name after "release-N", content type, field holding the blob's sha256);
+#: "bundle" is the one archive a site downloads (the three files and a requirements list).
+RELEASE_PARTS = {"bundle": (".zip", "application/zip", "bundle_sha256"),
+                 "model": ("-model.skops", "application/octet-stream", "model_sha256"),
+                 "card": ("-model-card.md", "text/markdown", "card_sha256"),
+                 "spec": ("-features.json", "application/json", "spec_sha256")}
 
 
 def _form(user, study, data=None):
@@ -93,9 +96,36 @@ def _model_rows(run):
         rows.append({"name": name, "ba": r["per_fold"]["balanced_accuracy"],
                      "acc": r["per_fold"]["accuracy"], "f1": r["per_fold"]["macro_f1"],
                      "kappa": r["per_fold"]["kappa"], "pooled": r["pooled"], "ci": r["ci"],
-                     "chance": r["chance"]})
+                     "chance": r["chance"], "mark": _selection_mark(run, name)})
     rows.sort(key=lambda r: -r["ba"]["mean"])
     return rows
+
+
+def _selection_mark(run, name):
+    """How a model stands in the choice of the release model: "named" (in the spec),
+    "chosen" (its lead over every other is supported by the corrected paired test),
+    "highest" (best mean, but some others are not measurably different), "tie" (not
+    measurably different from the released one), "released" (a run stored before choices
+    were tested, or one model only), or ""."""
+    selection = (run.results.get("statistics") or {}).get("selection") or {}
+    released = run.results.get("release_model")
+    ties = selection.get("no_measurable_difference") or []
+    if name == released:
+        if selection.get("how") == "named":
+            return "named"
+        if selection.get("how") == "best":
+            return "highest" if ties else "chosen"
+        return "released"
+    return "tie" if name in ties else ""
+
+
+def _permutation(statistics):
+    """The stored permutation test with the smallest p its count allows (runs stored before
+    it was kept get it computed here)."""
+    test = (statistics or {}).get("permutation")
+    if not test:
+        return None
+    return {"min_p_value": 1.0 / (1 + test["n_permutations"]), **test}
 
 
 def work_status(run):
@@ -132,6 +162,8 @@ def run_detail(request, training_id):
                               best_result["pooled"]["confusion"], strict=False))
         if best_result else [],
         "statistics": run.results.get("statistics", {}),
+        "selection": (run.results.get("statistics") or {}).get("selection"),
+        "permutation": _permutation(run.results.get("statistics")),
         "spec_text": json.dumps(run.spec, indent=2, sort_keys=True),
         "releases": releases, "lead": lead,
         "may_rerun": may_run_on(request.user, run.feature_set, sites),
@@ -234,14 +266,17 @@ def release_file(request, release_id, part, site_slug):
     if part not in RELEASE_PARTS:
         raise Http404("no such release file")
     require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
-    filename, content_type, field = RELEASE_PARTS[part]
+    suffix, content_type, field = RELEASE_PARTS[part]
+    filename = f"release-{release.pk}{suffix}"
     sha = getattr(release, field)
+    if not sha:
+        raise Http404("this release has no archive; download its files one by one")
     record("download", actor=request.user, token=getattr(request, "api_token", None),
            site=site, study=release.run.study, target=release,
            summary=f"downloaded {filename} of release {release.pk} for {site.slug}",
            outputs=[{"release": release.pk, "file": filename, "sha256": sha}])
-    return FileResponse(blobs.open_blob(sha), as_attachment=True,
-                        filename=f"release-{release.pk}-{filename}", content_type=content_type)
+    return FileResponse(blobs.open_blob(sha), as_attachment=True, filename=filename,
+                        content_type=content_type)
 
 
 @access("checked")

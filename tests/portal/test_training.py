@@ -3,6 +3,7 @@ scores with spread, statistics, releases (skops, model card), approval, download
 the train command. The learning code's science is checked in tests/unit against
 scikit-learn and published formulas; here invented demo data checks the plumbing."""
 
+import hashlib
 import io
 import json
 import subprocess
@@ -115,8 +116,6 @@ def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     response = client.get(reverse("training:release_file", args=[site.slug, release.pk,
                                                                  "model"]))
     payload = b"".join(response.streaming_content)
-    import hashlib
-
     assert hashlib.sha256(payload).hexdigest() == release.model_sha256
     assert Event.objects.filter(verb="download", target_id=str(release.pk)).count() == 1
 
@@ -132,15 +131,16 @@ def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     data = prepare_data(_table(featured.table_sha256), TrainingSpec.from_dict(run.spec))
     assert set(model.predict(data.X)) <= set(data.labels)
 
-    # Outside the portal: a fresh virtual environment with only the science package, the
-    # release files as downloaded, one BIDS recording of the training data.
-    folder = tmp_path / "release"
-    folder.mkdir()
-    (folder / "model.skops").write_bytes(payload)
-    for part, name in (("spec", "features.json"), ("card", "model-card.md")):
-        response = client.get(reverse("training:release_file", args=[site.slug, release.pk,
-                                                                     part]))
-        (folder / name).write_bytes(b"".join(response.streaming_content))
+    # Outside the portal, as a site would: the one archive through the portal's URL, a fresh
+    # virtual environment with only the archive's requirements and the science package, and
+    # the README's own example run on a BIDS recording of the training data.
+    response = client.get(reverse("training:release_file", args=[site.slug, release.pk,
+                                                                 "bundle"]))
+    assert response.status_code == 200
+    assert f'filename="release-{release.pk}.zip"' in response["Content-Disposition"]
+    archive = tmp_path / f"release-{release.pk}.zip"
+    archive.write_bytes(b"".join(response.streaming_content))
+    assert hashlib.sha256(archive.read_bytes()).hexdigest() == release.bundle_sha256
     item = featured.items.select_related("recording__version").filter(
         recording__version__site=site, recording__task="disruption").order_by(
         "recording__path").first()
@@ -148,9 +148,10 @@ def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     mine = table[(table["recording"] == item.recording.path) & (table["site"] == site.slug)]
     expected = model.predict(mine[data.columns].to_numpy(dtype=float)).tolist()
     bids_file = demo_file(featured, item.recording)
-    outside = predict_outside(folder, bids_file, item.inputs, tmp_path)
+    outside = predict_outside(archive, bids_file, item.inputs, tmp_path)
     assert outside["window_start_s"] == mine["window_start_s"].tolist()
     assert outside["predicted"] == expected
+    assert outside["classes"] == sorted(data.labels) and outside["proba_argmax"] == expected
 
     # The run page shows the scores with spread, the statistics and the release.
     client.force_login(lead)
@@ -274,31 +275,58 @@ def demo_file(feature_set, recording):
     return root / recording.path
 
 
-def predict_outside(folder, bids_file, inputs, tmp_path):
-    """Install the package into a new venv (no Django there) and predict with the release."""
+def predict_outside(archive, bids_file, inputs, tmp_path):
+    """In a new venv (no Django there), install only the requirements the release archive
+    lists and the science package without its own dependencies, run the README's example
+    with the archive as downloaded, then predict with the portal's inputs for comparison."""
     import os
+    import re
+    import zipfile
     from pathlib import Path
 
     repo = Path(__file__).resolve().parents[2]
     venv = tmp_path / "venv"
     subprocess.run([sys.executable, "-m", "venv", str(venv)], check=True)
     python = str(venv / "bin" / "python")
-    subprocess.run([python, "-m", "pip", "install", "--quiet",
-                    str(repo)], check=True, capture_output=True, cwd=str(tmp_path))
+    requirements = tmp_path / "requirements.txt"
+    with zipfile.ZipFile(archive) as z:
+        requirements.write_bytes(z.read("requirements.txt"))
+    for args in (["-r", str(requirements)], ["--no-deps", str(repo)]):
+        done = subprocess.run([python, "-m", "pip", "install", "--quiet", *args],
+                              capture_output=True, text=True, cwd=str(tmp_path))
+        assert done.returncode == 0, done.stderr[-3000:]
+    env = {**os.environ, "PYTHONPATH": "", "NUMBA_CACHE_DIR": str(tmp_path / "nb")}
+
+    readme = (repo / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("### Using a release outside the portal"):]
+    example = re.search(r"```python\n(.*?)```", section, re.S).group(1)
+    example, n_release = re.subn(r"^release = .*$", f"release = {str(archive)!r}", example,
+                                 flags=re.M)
+    example, n_recording = re.subn(r"^recording = .*$", f"recording = {str(bids_file)!r}",
+                                   example, flags=re.M)
+    assert n_release == n_recording == 1, "the README's example names release and recording"
+    done = subprocess.run([python, "-c", example], capture_output=True, text=True,
+                          cwd=str(tmp_path), env=env)
+    assert done.returncode == 0, done.stderr[-3000:]
+    assert "window_start_s" in done.stdout and "predicted" in done.stdout
+
     script = (
         "import json, sys\n"
         "import importlib.util\n"
         "assert importlib.util.find_spec('django') is None, 'django must not be needed'\n"
-        "from workers.release import predict\n"
+        "from workers.release import predict, predict_proba\n"
         "inputs = json.loads(sys.argv[3])\n"
-        "out = predict(sys.argv[1], sys.argv[2], bad_channels=inputs['bad_channels'],"
-        " bad_segments=inputs['bad_segments'], power_line_hz=inputs['power_line_hz'])\n"
+        "kw = dict(bad_channels=inputs['bad_channels'], bad_segments=inputs['bad_segments'],"
+        " power_line_hz=inputs['power_line_hz'])\n"
+        "out = predict(sys.argv[1], sys.argv[2], **kw)\n"
+        "proba = predict_proba(sys.argv[1], sys.argv[2], **kw)\n"
+        "classes = [c for c in proba.columns if c != 'window_start_s']\n"
         "print(json.dumps({'window_start_s': out['window_start_s'].tolist(),"
-        " 'predicted': out['predicted'].tolist()}))\n")
-    done = subprocess.run([python, "-c", script, str(folder), str(bids_file),
+        " 'predicted': out['predicted'].tolist(), 'classes': sorted(classes),"
+        " 'proba_argmax': proba[classes].idxmax(axis=1).tolist()}))\n")
+    done = subprocess.run([python, "-c", script, str(archive), str(bids_file),
                            json.dumps(inputs)], capture_output=True, text=True,
-                          cwd=str(tmp_path), env={**os.environ, "PYTHONPATH": "",
-                                                  "NUMBA_CACHE_DIR": str(tmp_path / "nb")})
+                          cwd=str(tmp_path), env=env)
     assert done.returncode == 0, done.stderr[-3000:]
     return json.loads(done.stdout)
 

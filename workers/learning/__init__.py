@@ -7,4 +7,4 @@ request as data) and :mod:`.run` (evaluating a request on a table).
 """
 
 #: Part of every training run's record; bump when results change for the same spec.
-CODE_VERSION = "learning-2"
+CODE_VERSION = "learning-3"

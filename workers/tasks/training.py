@@ -167,12 +167,41 @@ def _best(spec, results):
                                           name))
 
 
+def _selection(spec, results, outer_scores):
+    """How the release model was chosen: named in the spec, the only model, or the best of
+    several by per-fold balanced accuracy, with the corrected paired test of its lead over
+    each other candidate on the same outer folds."""
+    from workers.learning import metrics
+
+    chosen = _best(spec, results)
+    if spec.release.get("model"):
+        return {"how": "named", "chosen": chosen, "n_compared": 1, "comparisons": [],
+                "no_measurable_difference": []}
+    if len(results) == 1:
+        return {"how": "only", "chosen": chosen, "n_compared": 1, "comparisons": [],
+                "no_measurable_difference": []}
+    folds = {name: sorted(outer_scores[name], key=lambda r: r["fold"]) for name in results}
+    report = metrics.selection_report(
+        {name: [r["scores"]["balanced_accuracy"] for r in folds[name]] for name in results},
+        chosen=chosen,
+        n_train=sum(r["n_train"] for r in folds[chosen]) / len(folds[chosen]),
+        n_test=sum(r["n_test"] for r in folds[chosen]) / len(folds[chosen]))
+    return {"how": "best", **report}
+
+
 def statistics(spec, data, results, scores_by_purpose, layout):
-    """Permutation test of the release model, paired comparisons of ensembles."""
+    """Paired comparisons of ensembles, how the release model was chosen, and the block
+    permutation test of that choice: with several candidates each permutation repeats the
+    choice (every candidate is scored on the permuted labels and the best score is the null
+    value), so the p-value accounts for the selection; the naive p-value of the chosen model
+    alone comes from the same permutations."""
+    import numpy as np
+
     from workers.learning import metrics
     from workers.learning.run import fold_result
 
-    out = {"paired": [], "permutation": None}
+    out = {"paired": [], "permutation": None,
+           "selection": _selection(spec, results, scores_by_purpose["outer"])}
     if layout["paired"] is not None:
         purpose = "outer" if layout["paired"] == "outer" else "paired"
         for ensemble, single in layout["pairs"]:
@@ -188,25 +217,35 @@ def statistics(spec, data, results, scores_by_purpose, layout):
     n_perm = spec.statistics.get("permutations", 0)
     if n_perm:
         name = _best(spec, results)
-        model = next(m for m in spec.models if m.name == name)
-        folds = layout["outer"]
+        # the chosen model, then the others from the best observed score down: a permutation
+        # stops at the first candidate that reaches the observed score (metrics explains)
+        candidates = [m for m in spec.models if m.name == name]
+        if out["selection"]["how"] != "named":
+            candidates += sorted((m for m in spec.models if m.name != name), key=lambda m: (
+                -results[m.name]["pooled"]["balanced_accuracy"], m.name))
+        folds = [fold for fold in layout["outer"] if not fold.repeat]
+        scored = np.zeros(len(data.y), dtype=bool)
+        for fold in folds:
+            scored[fold.test] = True
         site_on = bool(spec.normalisation.get("site_standardise"))
 
-        def predict(y_permuted):
-            import numpy as np
-
+        def predict_model(y_permuted, k):
             shuffled = type(data)(**{**data.__dict__, "y": np.asarray(y_permuted)})
-            predicted = np.empty(len(data.y), dtype=object)
+            predicted = np.full(len(data.y), "", dtype=object)
             for fold in folds:
-                if fold.repeat:
-                    continue
-                r = fold_result(model, shuffled, fold, seed=spec.seed, site_standardise_on=site_on)
+                r = fold_result(candidates[k], shuffled, fold, seed=spec.seed,
+                                site_standardise_on=site_on)
                 predicted[fold.test] = r["predicted"]
             return predicted.astype(str)
 
-        out["permutation"] = {"model": name, **metrics.block_permutation_test(
-            predict, data.y, data.blocks, data.participants, n_permutations=n_perm,
-            seed=spec.seed, observed=results[name]["pooled"]["balanced_accuracy"])}
+        test = metrics.selection_permutation_test(
+            predict_model, data.y, data.blocks, data.participants, n_models=len(candidates),
+            chosen=0, n_permutations=n_perm, seed=spec.seed,
+            observed=results[name]["pooled"]["balanced_accuracy"], labels=data.labels,
+            scored=scored)
+        out["permutation"] = {"model": name, "selection": out["selection"]["how"],
+                              "n_folds": len(folds), "n_fits": test["n_fitted"] * len(folds),
+                              "max_fits": n_perm * len(candidates) * len(folds), **test}
     return out
 
 
@@ -234,7 +273,8 @@ def run_finish(ctx):
     ctx.progress(1, 3, "statistics")
     stats = statistics(spec, data, results, by_purpose, layout)
     ctx.progress(2, 3, "fitting the releases")
-    releases = fit_releases(run, spec, data, results) if spec.release.get("pooled") else []
+    releases = fit_releases(run, spec, data, results, stats) if spec.release.get("pooled") \
+        else []
     with ctx.finish() as job:
         TrainingRun.objects.filter(pk=run.pk).update(
             state=RunState.DONE, finished_at=timezone.now(),
@@ -272,33 +312,96 @@ def run_finish(ctx):
         job.result = {"models": len(results), "releases": len(stored)}
 
 
-def fit_releases(run, spec, data, results):
-    """The release model fitted on all included rows (pooled), and per site if asked."""
+def fit_releases(run, spec, data, results, stats=None):
+    """The release model fitted on all included rows (pooled), and per site if asked; each
+    release carries the evaluation of exactly the model it holds."""
     import numpy as np
 
     from portal.accounts.models import Site
 
     name = _best(spec, results)
     model = next(m for m in spec.models if m.name == name)
-    out = [_release(run, spec, data, model, results[name], rows=np.arange(len(data.y)),
-                    kind="pooled", site=None)]
+    pooled = {**_evaluation(results[name]), "permutation": (stats or {}).get("permutation"),
+              "selection": (stats or {}).get("selection")}
+    out = [_release(run, spec, data, model, {"evaluation": "pooled", "scheme": spec.validation,
+                                             **pooled},
+                    rows=np.arange(len(data.y)), kind="pooled", site=None)]
     if spec.release.get("per_site"):
         for slug in sorted(set(data.sites.tolist())):
             rows = np.flatnonzero(data.sites == slug)
             if len(set(data.y[rows].tolist())) < 2 or len(set(
                     data.participants[rows].tolist())) < 2:
                 continue
-            out.append(_release(run, spec, data, model, results[name], rows=rows,
+            scores = {**site_evaluation(spec, data, model, rows), "site": slug,
+                      "scheme": spec.validation, "pooled_model": {
+                          "model": name, "scheme": spec.validation, **_evaluation(
+                              results[name])}}
+            out.append(_release(run, spec, data, model, scores, rows=rows,
                                 kind="site_only", site=Site.objects.get(slug=slug)))
     return out
 
 
-def _release(run, spec, data, model, result, *, rows, kind, site):
+def _evaluation(result):
+    """The stored summary of one model's validation: per fold, pooled, interval, chance and
+    per site."""
+    return {"per_fold": result["per_fold"],
+            "pooled": {k: result["pooled"][k] for k in ("accuracy", "balanced_accuracy",
+                                                        "macro_f1", "kappa")},
+            "ci": result["ci"], "chance": result["chance"],
+            "per_site": {s: {k: v[k] for k in ("accuracy", "balanced_accuracy", "n")}
+                         for s, v in result["per_site"].items()}}
+
+
+def subset(data, rows):
+    """The prepared data restricted to ``rows`` (every per-row array), with the classes
+    present there."""
+    import numpy as np
+
+    n = len(data.y)
+    fields = {key: (value[rows] if isinstance(value, np.ndarray) and value.ndim
+                    and value.shape[0] == n else value)
+              for key, value in data.__dict__.items()}
+    present = set(fields["y"].tolist())
+    fields["labels"] = [label for label in data.labels if label in present]
+    return type(data)(**fields)
+
+
+def site_evaluation(spec, data, model, rows):
+    """A site-only model's own evaluation: the spec's validation scheme on that site's rows
+    alone (folds from ``outer_folds`` over the site's participants), the same learner and
+    seed. ``{"evaluation": "site_only", …scores, "folds": [who trained and who was tested]}``,
+    or ``{"evaluation": "none", "no_evaluation": why}`` when the site cannot support the
+    scheme (e.g. too few participants)."""
+    from workers.learning import validation
+    from workers.learning.run import DataError, evaluate, folds_for
+
+    site_data = subset(data, rows)
+    try:
+        folds = folds_for(spec, site_data)
+    except (DataError, validation.SchemeError) as exc:
+        return {"evaluation": "none",
+                "no_evaluation": f"{spec.validation['scheme']} cannot be run on this site's "
+                                 f"data alone ({exc})"}
+    result = evaluate(spec, site_data, models=[model], folds=folds)[model.name]
+    return {"evaluation": "site_only", **_evaluation(result),
+            "folds": [{"fold": f.index, "repeat": f.repeat,
+                       "train_participants": sorted(set(
+                           site_data.participants[f.train].tolist())),
+                       "test_participants": sorted(set(
+                           site_data.participants[f.test].tolist()))} for f in folds]}
+
+
+def _release(run, spec, data, model, scores, *, rows, kind, site):
     import numpy as np
 
     from workers.learning.canonical import model_digest, skops_bytes, trusted_types
     from workers.learning.run import build_estimator, needs_groups, site_standardise
-    from workers.release import feature_specification, model_card
+    from workers.release import (
+        bundle,
+        feature_specification,
+        model_card,
+        release_requirements,
+    )
 
     X = data.X
     site_stats = None
@@ -314,17 +417,12 @@ def _release(run, spec, data, model, result, *, rows, kind, site):
     payload = skops_bytes(estimator)
     model_sha, _ = blobs.put_bytes(payload)
     trusted = trusted_types(payload)
-    scores = {"scheme": spec.validation, "per_fold": result["per_fold"],
-              "pooled": {k: result["pooled"][k] for k in ("accuracy", "balanced_accuracy",
-                                                          "macro_f1", "kappa")},
-              "ci": result["ci"], "chance": result["chance"],
-              "per_site": {s: {k: v[k] for k in ("accuracy", "balanced_accuracy", "n")}
-                           for s, v in result["per_site"].items()}}
     features = feature_specification(
         feature_set_params=run.feature_set.params, columns=data.columns, labels=data.labels,
         label=spec.label, normalisation=spec.normalisation, site_stats=site_stats,
         model_sha256=model_sha, trusted=trusted, caution=CAUTION)
-    spec_sha, _ = blobs.put_bytes(json.dumps(features, indent=2, sort_keys=True).encode())
+    features_bytes = json.dumps(features, indent=2, sort_keys=True).encode()
+    spec_sha, _ = blobs.put_bytes(features_bytes)
     training = {"sites": sorted(set(data.sites[rows].tolist())),
                 "participants": int(len(set(data.participants[rows].tolist()))),
                 "windows": int(len(rows)), "qc_verdicts": spec.include["qc_verdicts"],
@@ -333,10 +431,11 @@ def _release(run, spec, data, model, result, *, rows, kind, site):
     card = model_card(estimator, name=model.name, kind=kind, training=training, scores=scores,
                       caution=CAUTION, trusted=trusted, site=site.slug if site else None)
     card_sha, _ = blobs.put_bytes(card.encode())
+    bundle_sha, _ = blobs.put_bytes(bundle({"model.skops": payload,
+                                            "model-card.md": card.encode(),
+                                            "features.json": features_bytes},
+                                           requirements=release_requirements()))
     return {"model": model.name, "kind": kind, "trained_on_site": site,
             "model_sha256": model_sha, "model_digest": model_digest(estimator),
-            "card_sha256": card_sha, "spec_sha256": spec_sha, "trusted_types": trusted,
-            "scores": scores}
-
-
-
+            "card_sha256": card_sha, "spec_sha256": spec_sha, "bundle_sha256": bundle_sha,
+            "trusted_types": trusted, "scores": scores}
