@@ -148,15 +148,15 @@ def test_the_run_page_reports_the_selection_and_its_p_value(client, featured):
     count allows, 1/(n + 1) (Phipson & Smyth 2010). A model named in the spec was not chosen:
     the page says so and the test has nothing to repeat."""
     with threadpool_limits(1):
-        run = finished(spec_for(featured, statistics={"permutations": 19}))
+        run = finished(spec_for(featured, statistics={"permutations": 49}))
     assert run.state == "done", run.error
     stats = run.results["statistics"]
     selection, test = stats["selection"], stats["permutation"]
     assert selection["how"] == "best" and selection["n_compared"] == 4
     assert test["n_models"] == 4 and test["selection"] == "best"
     assert test["p_value"] >= test["naive_p_value"]
-    assert test["min_p_value"] == pytest.approx(1 / 20)
-    assert test["n_fits"] <= test["max_fits"] == 19 * 4 * 3
+    assert test["min_p_value"] == pytest.approx(1 / 50)
+    assert test["n_fits"] <= test["max_fits"] == 49 * 4 * 3
     # three folds give the corrected test little power: some lead is not supported
     assert selection["no_measurable_difference"]
     print(f"\nrun {run.pk}: {test['model']} chosen among {test['n_models']} models; "
@@ -172,7 +172,7 @@ def test_the_run_page_reports_the_selection_and_its_p_value(client, featured):
     assert "no measurable difference from the released model" in page
     assert "released: highest mean, no measurable difference from some others" in page
     assert "chosen for release" not in page
-    assert "the smallest p 19 permutations allow being 1/(19 + 1) = 0.0500" in page
+    assert "the smallest p 49 permutations allow being 1/(49 + 1) = 0.0200" in page
     assert f"p = {test['p_value']:.4f}" in page
     assert f"alone would give p = {test['naive_p_value']:.4f}" in page
     assert "each repeating the choice of the best of 4 models" in page
@@ -180,7 +180,7 @@ def test_the_run_page_reports_the_selection_and_its_p_value(client, featured):
     assert "no measurable difference from the released model" in compare
     release = ModelRelease.objects.get(run=run)
     card = _card(release)
-    assert "the smallest p 19 permutations allow is 1/(19 + 1) = 0.0500" in card
+    assert "the smallest p 49 permutations allow is 1/(49 + 1) = 0.0200" in card
     assert "repeated the choice of the best of 4 models" in card
 
     with threadpool_limits(1):
