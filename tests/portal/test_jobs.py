@@ -203,9 +203,13 @@ def test_transient_errors_are_retried_and_never_count_as_lost_workers(sent, hook
     assert job_json(job)["transient_failures"] == 4  # what the API and the job page show
 
 
+@pytest.mark.django_db(transaction=True)
 def test_database_still_out_when_giving_back_is_resumed_by_token(sent, monkeypatch):
     """If the job cannot be given back (the database is still out), the next try does it
-    first: the run counts as a transient retry, not as an attempt of a lost worker."""
+    first: the run counts as a transient retry, not as an attempt of a lost worker.
+
+    Transactional: the runner closes the broken connection, which on PostgreSQL ends the
+    test's wrapping transaction (SQLite's in-memory database ignores the close)."""
     from django.db import OperationalError
 
     calls = []
