@@ -25,7 +25,7 @@ REPO = Path(__file__).resolve().parents[1]
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-from workers.runtime import THREAD_VARIABLES  # noqa: E402
+from cairn_science.runtime import THREAD_VARIABLES  # noqa: E402
 
 #: Common practice, no source: the study's default bands inside 0.5–40 Hz.
 BANDS = [{"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
@@ -36,7 +36,7 @@ BANDS = [{"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
 
 
 def _init_worker():
-    from workers.runtime import limit_numeric_threads
+    from cairn_science.runtime import limit_numeric_threads
 
     limit_numeric_threads(1)
 
@@ -45,7 +45,7 @@ def warm_up(_):
     """Load everything a worker loads and compile (or load cached) kernels on a tiny input."""
     import numpy as np
 
-    from workers.features import FeatureRequest, compute_features
+    from cairn_science.features import FeatureRequest, compute_features
 
     request = FeatureRequest.from_dict({"bands": BANDS})
     data = np.random.default_rng(0).standard_normal((2, 1000)) * 1e-5
@@ -63,7 +63,7 @@ def read_part(task):
     import mne
     import mne_bids
 
-    from workers.features.pipeline import recording_part
+    from cairn_science.features.pipeline import recording_part
 
     path, inputs, params = task
     with warnings.catch_warnings():

@@ -43,7 +43,7 @@ COMPILE_CHILD = r"""
 import json, sys, time
 import numpy as np
 t0 = time.perf_counter()
-from workers.features import complexity as c
+from cairn_science.features import complexity as c
 times = {"import": time.perf_counter() - t0}
 x = np.random.default_rng(0).standard_normal((4, 64))
 for name in ("approximate_entropy", "sample_entropy", "hurst_exponent", "dfa_exponent"):
@@ -92,7 +92,7 @@ def candidates(x):
     import antropy
     from mne_features.univariate import compute_app_entropy, compute_hurst_exp
 
-    from workers.features import complexity as ours
+    from cairn_science.features import complexity as ours
 
     n = x.shape[1]
     rows = [np.ascontiguousarray(row) for row in x]

@@ -105,8 +105,8 @@ def main():
     parser.add_argument("--work-dir", default=None, help="scratch folder (default: a temp dir)")
     args = parser.parse_args()
     sys.path.insert(0, str(REPO))
+    from cairn_science.archive import pack_folder
     from fixtures.demo import generate
-    from workers.archive import pack_folder
 
     work = Path(args.work_dir or tempfile.mkdtemp(prefix="cairn-bench-"))
     demo = work / "demo"

@@ -32,11 +32,11 @@ REPO = Path(__file__).resolve().parents[1]
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
+from cairn_science.qc import QCSettings, run_qc  # noqa: E402
 from fixtures.demo.bids_output import build_raw  # noqa: E402
 from fixtures.demo.protocol import draw_person  # noqa: E402
 from fixtures.demo.scenario import SITES  # noqa: E402
 from fixtures.demo.signals import simulate_recording  # noqa: E402
-from workers.qc import QCSettings, run_qc  # noqa: E402
 
 SITE = next(site for site in SITES if site.slug == "kestrel-junction")
 FAULTS = ("flat", "noisy", "popping", "bridged")

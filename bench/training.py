@@ -28,7 +28,7 @@ REPO = Path(__file__).resolve().parents[1]
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-from workers.runtime import THREAD_VARIABLES  # noqa: E402
+from cairn_science.runtime import THREAD_VARIABLES  # noqa: E402
 
 GRID = {"strategies": ["bagging", "stacking"], "learners": ["lda", "logistic", "knn"],
         "mixed": [["lda", "logistic", "knn"]], "members": [5, 10, 25]}
@@ -36,13 +36,13 @@ _STATE = {}
 
 
 def _init(frame_path, spec_dict):
-    from workers.runtime import limit_numeric_threads
+    from cairn_science.runtime import limit_numeric_threads
 
     limit_numeric_threads(1)
     import pandas as pd
 
-    from workers.learning.run import folds_for, prepare_data
-    from workers.learning.spec import TrainingSpec
+    from cairn_science.learning.run import folds_for, prepare_data
+    from cairn_science.learning.spec import TrainingSpec
 
     spec = TrainingSpec.from_dict(spec_dict)
     data = prepare_data(pd.read_parquet(frame_path), spec)
@@ -50,7 +50,7 @@ def _init(frame_path, spec_dict):
 
 
 def ours(task):
-    from workers.learning.run import fold_result
+    from cairn_science.learning.run import fold_result
 
     name, index = task
     spec, data, folds = _STATE["spec"], _STATE["data"], _STATE["folds"]
@@ -64,7 +64,7 @@ def plain_estimator(model, inner_cv, seed):
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import StandardScaler
 
-    from workers.learning.learners import make_learner
+    from cairn_science.learning.learners import make_learner
 
     if model.ensemble is None:
         core = make_learner(model.learner, random_state=seed)
@@ -83,7 +83,7 @@ def plain_estimator(model, inner_cv, seed):
 def plain(tasks):
     from sklearn.metrics import balanced_accuracy_score
 
-    from workers.learning.validation import inner_splits
+    from cairn_science.learning.validation import inner_splits
 
     spec, data, folds = _STATE["spec"], _STATE["data"], _STATE["folds"]
     out = []
@@ -159,7 +159,7 @@ def main():
     args = parser.parse_args()
     for name in THREAD_VARIABLES:
         os.environ[name] = "1"
-    from workers.learning.spec import TrainingSpec
+    from cairn_science.learning.spec import TrainingSpec
 
     spec_dict = {"feature_set": 0, "label": {"kind": "level"},
                  "validation": {"scheme": "grouped_kfold", "n_splits": 5},

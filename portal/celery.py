@@ -5,7 +5,7 @@ import os
 from celery import Celery
 from celery.signals import worker_process_init
 
-from workers.runtime import limit_numeric_threads
+from cairn_science.runtime import limit_numeric_threads
 
 os.environ.setdefault("DJANGO_SETTINGS_MODULE", "portal.settings")
 # Before numpy/scipy/numba load anywhere in this process (web or worker).
@@ -26,7 +26,7 @@ app.conf.update(
     worker_hijack_root_logger=False,
     beat_schedule_filename=os.environ.get("CAIRN_BEAT_SCHEDULE", "var/beat-schedule"),
 )
-app.autodiscover_tasks(["workers.tasks"], related_name="jobs")
+app.autodiscover_tasks(["portal.jobs"])  # portal/jobs/tasks.py
 
 
 @worker_process_init.connect

@@ -206,10 +206,10 @@ class _QCWords:
     the quality package loads mne)."""
 
     def __init__(self, qc_settings):
-        from workers.qc import QCSettings
-        from workers.qc.checks import WORDS
-        from workers.qc.segments import SEGMENT_WORDS
-        from workers.qc.verdict import decide_verdict
+        from cairn_science.qc import QCSettings
+        from cairn_science.qc.checks import WORDS
+        from cairn_science.qc.segments import SEGMENT_WORDS
+        from cairn_science.qc.verdict import decide_verdict
 
         known = set(QCSettings.__dataclass_fields__)
         self.settings = QCSettings(**{k: v for k, v in qc_settings.items() if k in known})
@@ -363,7 +363,7 @@ def _window_counts(duration_s, blocks, segments):
 def _scores(confusion, labels):
     """Accuracy, balanced accuracy, macro-F1, Cohen's kappa, recall, support and the
     confusion matrix from a confusion matrix (rows true), with the conventions of
-    ``workers.learning.metrics.scores``."""
+    ``cairn_science.learning.metrics.scores``."""
     c = np.asarray(confusion, dtype=float)
     n = c.sum()
     rows, cols, diag = c.sum(axis=1), c.sum(axis=0), np.diag(c)
@@ -553,10 +553,10 @@ class _Builder:
                            memberships=len(memberships))
 
     def protocol(self):
+        from cairn_science.bids.ratings import Scale
         from portal.quality.services import protocol_settings
         from portal.studies.models import ProtocolVersion, protocol_digest
         from portal.studies.protocol import default_protocol, validate_protocol
-        from workers.bids.ratings import Scale
 
         data = default_protocol()
         data["tasks"] = [TASK]
@@ -903,7 +903,7 @@ class _Builder:
             "grouping": "participant", "balanced_accuracy": round(pooled, 4),
             "fold_mean": round(pooled - 0.01, 4), "fold_sd": round(float(
                 self.rng.uniform(0.02, 0.08)), 4)}
-        # 0.2 above chance counts as strong, as in workers/features/site_effects.py.
+        # 0.2 above chance counts as strong, as in cairn_science/features/site_effects.py.
         report["warning"] = (
             f"the site can be told from these features with balanced accuracy {pooled:.2f} "
             f"(chance {chance:.2f}) on participants not seen in training: a classifier may "
@@ -915,6 +915,7 @@ class _Builder:
     # ----------------------------------------------------------------- training
 
     def training(self):
+        from cairn_science.learning.spec import DEFAULT_QC, TrainingSpec
         from portal.features.services import canonical_digest
         from portal.training.models import (
             FoldScore,
@@ -924,7 +925,6 @@ class _Builder:
             TrainingRun,
         )
         from portal.training.services import TRAINING_CODE_VERSION
-        from workers.learning.spec import DEFAULT_QC, TrainingSpec
 
         order = [lv[0] for lv in self.scale.levels]
         people, excluded = {}, 0

@@ -2,7 +2,7 @@
 by the share of quality checks that flagged it, rendered as inline SVG.
 
 Pure (no Django): names, counts and a label in, an SVG string out, the same for the same input.
-Positions come from the 10-20 template in ``workers.qc.positions``, projected azimuthally
+Positions come from the 10-20 template in ``cairn_science.qc.positions``, projected azimuthally
 equidistant about the centre of the least-squares sphere through all template positions.
 """
 
@@ -48,7 +48,7 @@ _NOT_XML = re.compile("[^\t\n\r\x20-\ud7ff\ue000-\ufffd\U00010000-\U0010ffff]")
 def _head_centre():
     """Centre (m) of the least-squares sphere through every template position."""
     # Imported here so that importing this module does not load mne in the web process.
-    from workers.qc.positions import fit_sphere, template_positions
+    from cairn_science.qc.positions import fit_sphere, template_positions
 
     points = np.array(list(template_positions().values()), dtype=float)
     centre, _ = fit_sphere(points)
@@ -57,7 +57,7 @@ def _head_centre():
 
 @functools.lru_cache(maxsize=4096)
 def _project(ch_name):
-    from workers.qc.positions import template_position
+    from cairn_science.qc.positions import template_position
 
     position = template_position(ch_name)
     if position is None:

@@ -18,13 +18,13 @@ from django.db import transaction
 from django.db.models import Q
 from django.utils import timezone
 
+from cairn_science.archive import ArchiveError, pack_folder
 from portal.accounts.models import Site
 from portal.accounts.permissions import Action, require
 from portal.audit.events import record
 from portal.datasets.blobs import FULL_ERRNOS
 from portal.datasets.models import DatasetVersion, Upload, UploadMode, UploadState
 from portal.jobs.services import enqueue
-from workers.archive import ArchiveError, pack_folder
 
 CHUNK_BYTES = 1024 * 1024
 

@@ -18,7 +18,7 @@ from portal.quality.services import effective_channels, latest_overrides, runs_o
 from portal.studies.models import current_protocol
 from portal.studies.protocol import DEFAULT_PROTOCOL
 
-#: Must equal ``workers.features.CODE_VERSION`` (a test checks); part of every set's identity.
+#: Must equal ``cairn_science.features.CODE_VERSION`` (a test checks); part of every set's identity.
 FEATURES_CODE_VERSION = "features-1"
 
 PREPROCESSING_FIELDS = ("l_freq_hz", "h_freq_hz", "notch", "analysis_sfreq_hz",

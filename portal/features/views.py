@@ -30,7 +30,7 @@ DOWNLOAD_KINDS = {"parquet": "application/vnd.apache.parquet", "csv": "text/csv"
 
 
 def feature_choices():
-    from workers.features import registry
+    from cairn_science.features import registry
 
     return [(f.name, f"{f.name.replace('_', ' ')} ({f.family})") for f in registry().values()]
 

@@ -30,30 +30,30 @@ FAILURE_CAUSES = ("error", "internal", "lost", "transient")
 KINDS = {
     kind.name: kind
     for kind in (
-        JobKind("probe", "worker check", "workers.tasks.probe:run_probe", queue="intake"),
+        JobKind("probe", "worker check", "portal.jobs.probe:run_probe", queue="intake"),
         JobKind(
             "upload.validate", "validate and index an upload",
-            "workers.tasks.intake:validate_upload", queue="intake",
+            "portal.datasets.jobs:validate_upload", queue="intake",
             on_failure="portal.datasets.services:validation_failed",
         ),
         JobKind("qc.version", "quality checks of a dataset version",
-                "workers.tasks.quality:run_version", queue="intake"),
+                "portal.quality.jobs:run_version", queue="intake"),
         JobKind("qc.recording", "quality checks of a recording",
-                "workers.tasks.quality:run_recording", queue="compute"),
+                "portal.quality.jobs:run_recording", queue="compute"),
         JobKind("features.set", "feature set: plan the recordings",
-                "workers.tasks.features:run_set", queue="compute"),
+                "portal.features.jobs:run_set", queue="compute"),
         JobKind("features.recording", "features of a recording",
-                "workers.tasks.features:run_recording", queue="compute"),
+                "portal.features.jobs:run_recording", queue="compute"),
         JobKind("features.combine", "feature set: join the table",
-                "workers.tasks.features:run_combine", queue="compute"),
+                "portal.features.jobs:run_combine", queue="compute"),
         JobKind("training.run", "training run: check and plan the folds",
-                "workers.tasks.training:run_run", queue="compute"),
+                "portal.training.jobs:run_run", queue="compute"),
         JobKind("training.fold", "training run: one model on one fold",
-                "workers.tasks.training:run_fold", queue="compute"),
+                "portal.training.jobs:run_fold", queue="compute"),
         JobKind("training.finish", "training run: statistics and releases",
-                "workers.tasks.training:run_finish", queue="compute"),
+                "portal.training.jobs:run_finish", queue="compute"),
         JobKind("audit.reproduce", "compute a stored result again from its record",
-                "workers.tasks.reproduce:run_reproduce", queue="compute"),
+                "portal.audit.jobs:run_reproduce", queue="compute"),
     )
 }
 

@@ -105,11 +105,11 @@ def effective_channels(run, overrides):
 
 def decided_verdict(run, overrides):
     """The verdict of ``run`` after people's decisions (``overrides``: {channel: override}),
-    by the checks' own rule (:func:`workers.qc.verdict.effective_verdict`): a dict with
+    by the checks' own rule (:func:`cairn_science.qc.verdict.effective_verdict`): a dict with
     verdict, its label, verdict_reasons, n_bad_channels, n_channels and bad_channels. The
     stored result is not changed."""
-    from workers.qc.settings import QCSettings
-    from workers.qc.verdict import effective_verdict
+    from cairn_science.qc.settings import QCSettings
+    from cairn_science.qc.verdict import effective_verdict
 
     decided = effective_verdict(run.result,
                                 {name: item.status for name, item in overrides.items()},

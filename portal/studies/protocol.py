@@ -7,7 +7,7 @@ and gamma 30–40 Hz inside a 0.5–40 Hz analysis pass-band.
 
 import copy
 
-from workers.bids.ratings import DEFAULT_SCALE
+from cairn_science.bids.ratings import DEFAULT_SCALE
 
 DEFAULT_PROTOCOL = {
     "tasks": ["rest", "task"],

@@ -67,7 +67,7 @@ class ModelRelease(models.Model):
     """A final model fitted on all included data, saved with skops, with its model card, the
     feature specification needed to compute its inputs, and one archive of them all with the
     requirements to install (what a site downloads). ``scores`` is the evaluation of exactly
-    this model (a site-only model's own, or none), see ``workers/tasks/training.py``."""
+    this model (a site-only model's own, or none), see ``portal/training/jobs.py``."""
 
     run = models.ForeignKey(TrainingRun, on_delete=models.PROTECT, related_name="releases")
     model = models.CharField(max_length=120)

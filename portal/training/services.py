@@ -12,7 +12,7 @@ from portal.features.services import canonical_digest
 from portal.jobs.services import enqueue, jobs_about, state_with_failures
 from portal.training.models import ModelRelease, ReleaseState, TrainingRun
 
-#: Must equal ``workers.learning.CODE_VERSION`` (a test checks).
+#: Must equal ``cairn_science.learning.CODE_VERSION`` (a test checks).
 TRAINING_CODE_VERSION = "learning-3"
 
 
@@ -32,7 +32,7 @@ def feature_columns(feature_set):
 
 def check_spec(data):
     """(feature_set, TrainingSpec) for a spec dict, or TrainingRequestError naming fields."""
-    from workers.learning.spec import SpecError, TrainingSpec
+    from cairn_science.learning.spec import SpecError, TrainingSpec
 
     if not isinstance(data, dict):
         raise TrainingRequestError({"spec": ["give a JSON object"]})

@@ -87,7 +87,7 @@ def feature_set_of(site, study, versions, *, tag):
     """A finished feature set of one invented window, stored as the workers store it."""
     import pandas as pd
 
-    from workers.features.pipeline import frame_to_parquet
+    from cairn_science.features.pipeline import frame_to_parquet
 
     table = pd.DataFrame({"site": [site.slug], "level": ["low"],
                           "alpha.relative_power.Cz": [0.3]})

@@ -37,8 +37,8 @@ def test_counts_blocks_runs_and_verdicts():
 
     # Every recording row has a low and a high block, levels binned by the study's scale.
     assert set(rows.annotate(n=Count("blocks")).values_list("n", flat=True)) == {2}
+    from cairn_science.bids.ratings import Scale
     from portal.studies.models import current_protocol
-    from workers.bids.ratings import Scale
 
     scale = Scale.from_dict(current_protocol(study).data["rating_scale"])
     for block in Block.objects.filter(recording__version__study=study):
@@ -131,8 +131,8 @@ def test_generated_pages_render_for_the_study_lead(client):
 
 
 def test_scores_from_a_confusion_match_the_learning_metrics():
-    """source: scikit-learn's metrics, through workers.learning.metrics.scores."""
-    from workers.learning.metrics import scores
+    """source: scikit-learn's metrics, through cairn_science.learning.metrics.scores."""
+    from cairn_science.learning.metrics import scores
 
     labels = ["low", "moderate", "high"]
     rng = np.random.default_rng(0)

@@ -10,6 +10,7 @@ import hashlib
 
 import pytest
 
+from cairn_science.bids.headers import read_edf_header
 from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import VersionFile
 from portal.datasets.services import staging_path, submit_path
@@ -17,7 +18,6 @@ from portal.jobs import runner
 from portal.jobs.models import Job
 from portal.studies.models import current_protocol, save_protocol
 from tests.helpers import member
-from workers.bids.headers import read_edf_header
 
 pytestmark = pytest.mark.django_db
 

@@ -65,7 +65,7 @@ def test_audit_csv_escapes_every_cell(client, lab):
 def test_feature_table_csv_escapes_text_columns_and_keeps_numbers(client, lab):
     table = pd.DataFrame({"site": ["a1", "a1"], "participant": [FORMULAS[0], FORMULAS[3]],
                           "level": ["low", "high"], "alpha.relative_power.Cz": [-0.25, 0.5]})
-    from workers.features.pipeline import frame_to_parquet
+    from cairn_science.features.pipeline import frame_to_parquet
 
     sha, size = blobs.put_bytes(frame_to_parquet(table))
     feature_set = lab["data"]["objects"]["features"]

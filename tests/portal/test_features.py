@@ -57,7 +57,7 @@ def table_of(feature_set):
 
 
 def test_code_versions_agree():
-    from workers.features import CODE_VERSION
+    from cairn_science.features import CODE_VERSION
 
     assert FEATURES_CODE_VERSION == CODE_VERSION
 
@@ -105,8 +105,8 @@ def test_two_sites_end_to_end(client, demo_small):
     assert effects["top_features"] and 0 <= effects["top_features"][0]["eta_squared"] <= 1
 
     # Rebuilding the table from the stored parts gives the same bytes (same blob hash).
-    from workers.features.pipeline import frame_to_parquet
-    from workers.tasks.features import build_table
+    from cairn_science.features.pipeline import frame_to_parquet
+    from portal.features.jobs import build_table
 
     rebuilt, _, _ = build_table(feature_set)
     assert blobs.put_bytes(frame_to_parquet(rebuilt))[0] == feature_set.table_sha256

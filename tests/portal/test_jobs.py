@@ -247,7 +247,7 @@ def test_celery_task_retries_with_back_off_until_the_budget_is_spent(sent, setti
     """Eager Celery runs the retries at once (no waiting); the Job row counts them."""
     from django.db import OperationalError
 
-    from workers.tasks.jobs import run_job
+    from portal.jobs.tasks import run_job
 
     settings.JOB_TRANSIENT_RETRIES = 2
     monkeypatch.setattr(runner, "load_handler", lambda kind: failing_with(

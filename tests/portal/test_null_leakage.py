@@ -67,7 +67,7 @@ def null_table(seed=0):
 def null_feature_set():
     """The null table stored as a finished feature set of both sites (as the workers store
     one: Parquet table and column sidecar as blobs, one dataset version per site)."""
-    from workers.features.pipeline import frame_to_parquet
+    from cairn_science.features.pipeline import frame_to_parquet
 
     study, _ = add_study("null-study", name="Null study")
     versions = []

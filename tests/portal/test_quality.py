@@ -123,8 +123,8 @@ def test_pages_and_plots_render_and_plots_are_cached(client, checked, settings):
 
 
 def test_portal_and_checks_agree_on_the_code_version():
+    from cairn_science.qc import CODE_VERSION
     from portal.quality.services import QC_CODE_VERSION
-    from workers.qc import CODE_VERSION
 
     assert QC_CODE_VERSION == CODE_VERSION
 

@@ -24,7 +24,7 @@ pytestmark = pytest.mark.django_db
 
 
 def test_real_recording_goes_through_upload_checks_and_features(tmp_path):
-    from workers.qc import QCSettings, run_qc
+    from cairn_science.qc import QCSettings, run_qc
 
     root = tmp_path / "bids"
     relpath = write_long_recording_bids(root)

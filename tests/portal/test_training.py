@@ -67,7 +67,7 @@ def finished(spec, user=None):
 
 
 def test_code_versions_agree():
-    from workers.learning import CODE_VERSION
+    from cairn_science.learning import CODE_VERSION
 
     assert TRAINING_CODE_VERSION == CODE_VERSION
 
@@ -123,9 +123,9 @@ def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     # the stored table's rows give in the portal.
     import skops.io
 
-    from workers.learning.run import prepare_data
-    from workers.learning.spec import TrainingSpec
-    from workers.tasks.training import _table
+    from cairn_science.learning.run import prepare_data
+    from cairn_science.learning.spec import TrainingSpec
+    from portal.training.jobs import _table
 
     model = skops.io.loads(payload, trusted=release.trusted_types)
     data = prepare_data(_table(featured.table_sha256), TrainingSpec.from_dict(run.spec))
@@ -179,10 +179,10 @@ def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
     script = (
         "import json, sys\n"
         "import pandas as pd\n"
-        "from workers.learning.spec import TrainingSpec\n"
-        "from workers.learning.run import prepare_data, folds_for, fold_result,"
+        "from cairn_science.learning.spec import TrainingSpec\n"
+        "from cairn_science.learning.run import prepare_data, folds_for, fold_result,"
         " build_estimator, needs_groups\n"
-        "from workers.learning.canonical import model_digest\n"
+        "from cairn_science.learning.canonical import model_digest\n"
         "spec = TrainingSpec.from_dict(json.loads(sys.argv[2]))\n"
         "data = prepare_data(pd.read_parquet(sys.argv[1]), spec)\n"
         "model = next(m for m in spec.models if m.name == sys.argv[3])\n"
@@ -199,7 +199,7 @@ def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
     # the last bits of fitted coefficients), a new hash seed and empty numba caches.
     import os
 
-    from workers.runtime import THREAD_VARIABLES
+    from cairn_science.runtime import THREAD_VARIABLES
 
     env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "numba"), "PYTHONHASHSEED": "7",
            **{name: "1" for name in THREAD_VARIABLES}}
@@ -267,7 +267,7 @@ def demo_file(feature_set, recording):
     import tempfile
     from pathlib import Path
 
-    from workers.tasks.quality import recording_files
+    from portal.quality.jobs import recording_files
 
     root = Path(tempfile.mkdtemp(prefix="cairn-bids-"))
     for item in recording_files(recording):
@@ -314,7 +314,7 @@ def predict_outside(archive, bids_file, inputs, tmp_path):
         "import json, sys\n"
         "import importlib.util\n"
         "assert importlib.util.find_spec('django') is None, 'django must not be needed'\n"
-        "from workers.release import predict, predict_proba\n"
+        "from cairn_science.release import predict, predict_proba\n"
         "inputs = json.loads(sys.argv[3])\n"
         "kw = dict(bad_channels=inputs['bad_channels'], bad_segments=inputs['bad_segments'],"
         " power_line_hz=inputs['power_line_hz'])\n"

@@ -48,10 +48,10 @@ def test_a_site_only_release_is_scored_on_its_own_site(client, featured):
     participant-grouped folds from outer_folds over that site's participants, the same
     learner and seed) and must equal what the release stores; it differs from the pooled
     model's, which the release keeps apart and labels as the pooled model's."""
-    from workers.learning.run import build_estimator, needs_groups, prepare_data, scheme_of
-    from workers.learning.spec import TrainingSpec
-    from workers.learning.validation import outer_folds
-    from workers.tasks.training import _table
+    from cairn_science.learning.run import build_estimator, needs_groups, prepare_data, scheme_of
+    from cairn_science.learning.spec import TrainingSpec
+    from cairn_science.learning.validation import outer_folds
+    from portal.training.jobs import _table
 
     with threadpool_limits(1):
         run = finished(spec_for(featured, release={"per_site": True},
@@ -223,10 +223,10 @@ def test_a_release_with_participant_normalisation_uses_the_reference_windows(fea
     participant's own mean predicts a recording of a participant, given that participant's
     windows as the reference, exactly as the portal's prepared rows (normalised the same way)
     give; without the reference it refuses and names what to pass."""
-    from workers.learning.run import prepare_data
-    from workers.learning.spec import TrainingSpec
-    from workers.release import features_for_recording, load, predict, predict_proba
-    from workers.tasks.training import _table
+    from cairn_science.learning.run import prepare_data
+    from cairn_science.learning.spec import TrainingSpec
+    from cairn_science.release import features_for_recording, load, predict, predict_proba
+    from portal.training.jobs import _table
 
     with threadpool_limits(1):
         run = finished(spec_for(featured, models=[{"learner": "lda"}],

@@ -7,13 +7,13 @@ import pytest
 from django.test import Client
 from django.urls import reverse
 
+from cairn_science.archive import pack_folder
 from portal.accounts.models import ApiToken
 from portal.accounts.setup import add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import staging_path
 from portal.jobs.models import Job
 from tests.helpers import member
-from workers.archive import pack_folder
 
 pytestmark = pytest.mark.django_db
 
@@ -166,7 +166,7 @@ def test_beat_ends_abandoned_uploads_without_an_operator(client, lab, settings,
     from django.utils import timezone
 
     from portal.celery import app
-    from workers.tasks.jobs import expire_uploads
+    from portal.jobs.tasks import expire_uploads
 
     app.loader.import_default_modules()
     schedule = {entry["task"] for entry in app.conf.beat_schedule.values()}

@@ -60,13 +60,13 @@ def job_of(upload):
 
 def crash_validation(monkeypatch, exc):
     """Make the real validation handler fail half-way, after the upload became "validating"."""
-    import workers.bids.validate
+    import cairn_science.bids.validate
 
     def crash(*args, **kwargs):
         assert Upload.objects.get().state == UploadState.VALIDATING
         raise exc
 
-    monkeypatch.setattr(workers.bids.validate, "validate_dataset", crash)
+    monkeypatch.setattr(cairn_science.bids.validate, "validate_dataset", crash)
 
 
 def fail_upload(lab, monkeypatch, settings, how):

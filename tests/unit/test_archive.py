@@ -1,5 +1,5 @@
-"""Tests of workers.archive: broken and malicious archives are refused and leave nothing behind,
-good archives round-trip byte for byte, packing is deterministic, and memory stays flat.
+"""Tests of cairn_science.archive: broken and malicious archives are refused and leave nothing
+behind, good archives round-trip byte for byte, packing is deterministic, and memory stays flat.
 
 Archives are written with Python's own zipfile, tarfile and gzip; sha256 from hashlib is the
 reference for file contents.
@@ -20,8 +20,14 @@ import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
+from cairn_science.archive import (
+    ArchiveError,
+    ExtractLimits,
+    extract_archive,
+    list_files,
+    pack_folder,
+)
 from fixtures.broken_archives import BROKEN_ARCHIVES
-from workers.archive import ArchiveError, ExtractLimits, extract_archive, list_files, pack_folder
 
 MIB = 1024 * 1024
 

@@ -9,10 +9,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from cairn_science.bids.deid import scrub_dataset
+from cairn_science.bids.ratings import DEFAULT_SCALE
+from cairn_science.bids.validate import validate_dataset
 from fixtures.broken_bids import BROKEN_CASES, RECORDINGS, build_case, build_clean_dataset
-from workers.bids.deid import scrub_dataset
-from workers.bids.ratings import DEFAULT_SCALE
-from workers.bids.validate import validate_dataset
 
 
 @pytest.fixture(scope="module")

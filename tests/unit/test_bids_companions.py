@@ -17,10 +17,10 @@ from types import SimpleNamespace
 
 import pytest
 
+from cairn_science.bids.companions import CompanionError, companion_files
+from cairn_science.bids.recording import read_recording
+from cairn_science.bids.validate import validate_dataset
 from tests.helpers import bids_examples, examples_location, skip_or_fail
-from workers.bids.companions import CompanionError, companion_files
-from workers.bids.recording import read_recording
-from workers.bids.validate import validate_dataset
 
 REAL = Path(os.environ.get("CAIRN_REAL_EEG", Path(__file__).resolve().parents[3] / "shared"
                            / "reference" / "real-eeg"))
@@ -230,9 +230,9 @@ def test_recording_reader_refuses_before_mne_opens(attack, real_bids, tmp_path, 
 def test_quality_and_release_readers_refuse_too(real_bids, tmp_path):
     """The quality checks' reader stops the job with the header's words (a JobError, not an
     internal error), and predicting from the recording with a release refuses it (issue 13)."""
+    from cairn_science.release import features_for_recording
     from portal.jobs.services import JobError
-    from workers.release import features_for_recording
-    from workers.tasks.quality import read_raw
+    from portal.quality.jobs import read_raw
 
     root, secret = _case(real_bids, tmp_path)
     _, key, line, _ = _passwd(root, secret)

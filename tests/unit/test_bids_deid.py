@@ -5,12 +5,12 @@ import shutil
 
 import pytest
 
+from cairn_science.bids.deid import edf_findings, identifier_columns, scrub_dataset
+from cairn_science.bids.headers import read_edf_header
+from cairn_science.bids.readers import read_tsv
+from cairn_science.bids.validate import validate_dataset
 from fixtures.broken_bids import STEM_RUN1, build_clean_dataset
 from tests.helpers import bids_examples
-from workers.bids.deid import edf_findings, identifier_columns, scrub_dataset
-from workers.bids.headers import read_edf_header
-from workers.bids.readers import read_tsv
-from workers.bids.validate import validate_dataset
 
 
 @pytest.fixture(scope="module")

@@ -10,8 +10,8 @@ import json
 
 import pytest
 
-from workers.bids.index import pybids_agreement
-from workers.bids.validate import validate_dataset
+from cairn_science.bids.index import pybids_agreement
+from cairn_science.bids.validate import validate_dataset
 
 # The demo's scale: 1-9 in three bins, as its README and scans.json describe it.
 DEMO_SCALE = {"min": 1, "max": 9, "levels": [{"name": "low", "min": 1, "max": 3},
@@ -97,7 +97,7 @@ def test_known_files_are_not_read_again(demo_small, site_reports, monkeypatch, s
     def refuse(*args, **kwargs):
         raise AssertionError("read again")
 
-    monkeypatch.setattr("workers.bids.validate.read_with_mne_bids", refuse)
+    monkeypatch.setattr("cairn_science.bids.validate.read_with_mne_bids", refuse)
     second = validate_dataset(site.bids_root, scale=DEMO_SCALE, known=known).as_dict()
     assert second["recordings"] == first["recordings"]
     assert second["errors"] == []

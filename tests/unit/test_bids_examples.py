@@ -11,12 +11,12 @@ import json
 import pytest
 from bids_validator import BIDSValidator
 
+from cairn_science.bids.index import pybids_agreement
+from cairn_science.bids.names import check_path, is_eeg_data, walk_dataset
+from cairn_science.bids.report import Report
+from cairn_science.bids.sidecars import Tree
+from cairn_science.bids.validate import validate_dataset
 from tests.helpers import bids_examples, examples_location
-from workers.bids.index import pybids_agreement
-from workers.bids.names import check_path, is_eeg_data, walk_dataset
-from workers.bids.report import Report
-from workers.bids.sidecars import Tree
-from workers.bids.validate import validate_dataset
 
 EXAMPLES = examples_location()
 NAMES = ("eeg_cbm", "eeg_matchingpennies", "eeg_rishikesh")

@@ -12,11 +12,11 @@ from pathlib import Path
 
 import pytest
 
+from cairn_science.bids.channel_types import type_for_unknown
+from cairn_science.bids.recording import read_recording
+from cairn_science.bids.validate import validate_dataset
 from fixtures.broken_bids import RUN1_CHANNELS, RUN1_EVENTS, STEM_RUN1, build_clean_dataset
 from tests.helpers import skip_or_fail
-from workers.bids.channel_types import type_for_unknown
-from workers.bids.recording import read_recording
-from workers.bids.validate import validate_dataset
 
 REAL = Path(os.environ.get("CAIRN_REAL_EEG", Path(__file__).resolve().parents[3] / "shared"
                            / "reference" / "real-eeg"))

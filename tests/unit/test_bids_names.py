@@ -3,8 +3,8 @@
 import pytest
 from bids_validator import BIDSValidator
 
-from workers.bids import schema
-from workers.bids.names import BidsIgnore, check_path, walk_dataset
+from cairn_science.bids import schema
+from cairn_science.bids.names import BidsIgnore, check_path, walk_dataset
 
 # (path relative to the dataset root, what is wrong with it or "" when it is a good name)
 NAMES = [

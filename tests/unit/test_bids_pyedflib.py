@@ -12,10 +12,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from cairn_science.bids.deid import scrub_dataset
+from cairn_science.bids.headers import read_edf_header
+from cairn_science.bids.validate import validate_dataset
 from tests.helpers import PYEDFLIB_MEAS_DATE
-from workers.bids.deid import scrub_dataset
-from workers.bids.headers import read_edf_header
-from workers.bids.validate import validate_dataset
 
 pyedflib = pytest.importorskip("pyedflib")
 SOURCE = Path(pyedflib.__file__).parent / "data" / "test_generator.edf"

@@ -7,9 +7,9 @@ import shutil
 
 import pytest
 
+from cairn_science.bids.ratings import RatingSettings, Scale
+from cairn_science.bids.validate import validate_dataset
 from fixtures.broken_bids import SCANS, build_clean_dataset
-from workers.bids.ratings import RatingSettings, Scale
-from workers.bids.validate import validate_dataset
 
 BLOCKS = (("rest", 0.0, 10.0), ("low", 10.0, 10.0), ("high", 20.0, 10.0))
 PHENOTYPE = "phenotype/workload.tsv"

@@ -8,7 +8,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from workers.bids.readers import read_json, read_tsv, split_tsv_line
+from cairn_science.bids.readers import read_json, read_tsv, split_tsv_line
 
 RELPATH = "sub-01/eeg/sub-01_task-x_channels.tsv"
 FUZZ = settings(max_examples=150, deadline=None,

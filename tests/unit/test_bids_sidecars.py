@@ -10,9 +10,9 @@ import json
 
 import pytest
 
-from workers.bids.report import Report
-from workers.bids.sidecars import Tree
-from workers.bids.validate import validate_dataset
+from cairn_science.bids.report import Report
+from cairn_science.bids.sidecars import Tree
+from cairn_science.bids.validate import validate_dataset
 
 REQUIRED = {"TaskName": "x", "SamplingFrequency": 250, "EEGReference": "Cz",
             "PowerLineFrequency": 50, "SoftwareFilters": "n/a"}

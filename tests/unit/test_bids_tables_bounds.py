@@ -12,11 +12,11 @@ import tracemalloc
 
 import pytest
 
+from cairn_science.bids.limits import TABLE_LIMITS, MiB, TableLimit, table_kind
+from cairn_science.bids.readers import read_json, read_tsv
+from cairn_science.bids.recording import TableTooLarge, read_recording
+from cairn_science.bids.validate import validate_dataset
 from fixtures.broken_bids import RUN1_CHANNELS, RUN1_EVENTS, STEM_RUN1, build_clean_dataset
-from workers.bids.limits import TABLE_LIMITS, MiB, TableLimit, table_kind
-from workers.bids.readers import read_json, read_tsv
-from workers.bids.recording import TableTooLarge, read_recording
-from workers.bids.validate import validate_dataset
 
 PEAK_BOUND_BYTES = 50 * MiB
 RUN1 = f"{STEM_RUN1}_eeg.edf"

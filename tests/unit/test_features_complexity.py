@@ -22,8 +22,8 @@ from mne_features.univariate import (
 )
 from scipy import signal
 
-from workers.features.batch import WindowBatch
-from workers.features.complexity import (
+from cairn_science.features.batch import WindowBatch
+from cairn_science.features.complexity import (
     FEATURES,
     _hurst_splits,
     _slopes,
@@ -32,7 +32,7 @@ from workers.features.complexity import (
     hurst_exponent,
     sample_entropy,
 )
-from workers.features.registry import Band
+from cairn_science.features.registry import Band
 
 SFREQ_HZ = 256.0
 LENGTHS = (500, 1024)

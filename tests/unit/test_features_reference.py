@@ -18,16 +18,16 @@ import pywt
 import scipy.stats
 from scipy import signal
 
+from cairn_science.features import distribution, indices, spectral, timedomain
+from cairn_science.features.batch import WindowBatch
+from cairn_science.features.registry import FAMILIES, Band
 from fixtures.demo.signals import colored_noise, narrowband_noise
-from workers.features import distribution, indices, spectral, timedomain
-from workers.features.batch import WindowBatch
-from workers.features.registry import FAMILIES, Band
 
 antropy = pytest.importorskip("antropy")
 mne_features_univariate = pytest.importorskip("mne_features.univariate")
 mne_features_utils = pytest.importorskip("mne_features.utils")
 
-FEATURES_DIR = Path(__file__).resolve().parents[2] / "workers" / "features"
+FEATURES_DIR = Path(__file__).resolve().parents[2] / "cairn_science" / "features"
 MODULES = (spectral, timedomain, distribution, indices)
 
 SFREQ_HZ = 256.0
@@ -398,7 +398,7 @@ def _imported_modules(tree):
 
 
 def test_feature_code_does_not_import_the_references():
-    """Every .py under workers/features/ (whoever wrote it): no form of importing antropy or
+    """Every .py under cairn_science/features/ (whoever wrote it): no form of importing antropy or
     mne_features, which are test references only."""
     files = sorted(FEATURES_DIR.rglob("*.py"))
     assert {path.name for path in files} >= {"spectral.py", "timedomain.py", "distribution.py",

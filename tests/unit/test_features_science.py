@@ -17,9 +17,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from workers.features import FeatureRequest, compute_features
-from workers.features.pipeline import filter_edges, recording_part
-from workers.signal import PrepSettings, plan_windows, prepare
+from cairn_science.features import FeatureRequest, compute_features
+from cairn_science.features.pipeline import filter_edges, recording_part
+from cairn_science.signal import PrepSettings, plan_windows, prepare
 
 #: Common practice, no source: the study's default bands inside 0.5–40 Hz.
 BANDS = [{"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
@@ -162,7 +162,7 @@ def test_demo_workload_lowers_posterior_alpha_and_raises_frontal_theta(demo_smal
 def test_a_recording_shorter_than_the_filter_is_left_out_with_the_reason():
     """Plumbing: 1 s at 250 Hz cannot hold the 0.5 Hz high-pass (MNE's default design is
     3.3 periods of the 0.5 Hz transition band, about 6.6 s, from memory)."""
-    from workers.signal import TooShortError
+    from cairn_science.signal import TooShortError
 
     data = np.random.default_rng(0).standard_normal((2, 250)) * 1e-5
     with pytest.raises(TooShortError):

@@ -10,13 +10,13 @@ import pytest
 from mne.channels.layout import _find_topomap_coords
 from scipy import stats
 
-from portal.dashboard.headplot import head_svg, project, share_colour
-from workers.qc.positions import (
+from cairn_science.qc.positions import (
     CLASSIC_NAMES,
     TEMPLATE_MONTAGES,
     fit_sphere,
     template_position,
 )
+from portal.dashboard.headplot import head_svg, project, share_colour
 
 SVG = "{http://www.w3.org/2000/svg}"
 RING = ("Fpz", "Oz", "T7", "T8")

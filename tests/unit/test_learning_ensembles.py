@@ -36,22 +36,22 @@ from sklearn.svm import LinearSVC
 from sklearn.tree import DecisionTreeClassifier
 from sklearn.utils.estimator_checks import check_estimator
 
-from workers.learning.canonical import (
+from cairn_science.learning.canonical import (
     load_release,
     model_digest,
     skops_bytes,
     trusted_types,
 )
-from workers.learning.ensembles import (
+from cairn_science.learning.ensembles import (
     GroupBaggingClassifier,
     GroupCalibratedClassifier,
     GroupStackingClassifier,
 )
-from workers.learning.learners import LEARNERS, make_learner
+from cairn_science.learning.learners import LEARNERS, make_learner
 
 REPO = Path(__file__).resolve().parents[2]
-BAGGING = "workers.learning.ensembles.GroupBaggingClassifier"
-STACKING = "workers.learning.ensembles.GroupStackingClassifier"
+BAGGING = "cairn_science.learning.ensembles.GroupBaggingClassifier"
+STACKING = "cairn_science.learning.ensembles.GroupStackingClassifier"
 TREE = "sklearn.tree._tree.Tree"
 
 
@@ -378,7 +378,7 @@ def test_sklearn_check_estimator(make):
 def test_nested_params_and_pipeline_groups(wine):
     """Reference: scikit-learn 1.9.1 composite-estimator conventions: nested parameters by
     ``<name>__<param>`` (members of a stacking by their names), ``clone`` keeps them, and a
-    Pipeline routes ``model__groups`` to our fit (as workers.learning.run does)."""
+    Pipeline routes ``model__groups`` to our fit (as cairn_science.learning.run does)."""
     X, y, groups = wine
     stack = GroupStackingClassifier(_members()[:2], n_inner_splits=3, random_state=0)
     stack.set_params(lda__shrinkage=0.3, logistic__C=0.5)
@@ -494,7 +494,7 @@ def test_model_digest_same_in_another_process(wine):
     code = ("import numpy as np; from sklearn.datasets import load_wine; "
             "from sklearn.preprocessing import StandardScaler; "
             "from tests.unit.test_learning_ensembles import _forest_bagging; "
-            "from workers.learning.canonical import model_digest; "
+            "from cairn_science.learning.canonical import model_digest; "
             "X, y = load_wine(return_X_y=True); "
             "wine = (StandardScaler().fit_transform(X), y, np.arange(y.size) % 12); "
             "print(model_digest(_forest_bagging(wine)))")
@@ -664,12 +664,12 @@ def test_no_learner_splits_windows_internally(monkeypatch):
 def test_grouped_calibration_is_scikit_learns_on_the_grouped_folds():
     """Reference: scikit-learn 1.9.1 ``CalibratedClassifierCV(SVC(), method="sigmoid",
     cv=splits, ensemble=True)`` on the same participant-grouped inner folds
-    (``StratifiedGroupKFold`` via workers.learning.validation.inner_splits), and ``SVC``
+    (``StratifiedGroupKFold`` via cairn_science.learning.validation.inner_splits), and ``SVC``
     fitted on all rows for predict and decision_function: equal to the last bit."""
     from sklearn.calibration import CalibratedClassifierCV
     from sklearn.svm import SVC
 
-    from workers.learning.validation import inner_splits
+    from cairn_science.learning.validation import inner_splits
 
     X, y, groups = _row_data(seed=4)
     ours = GroupCalibratedClassifier(SVC(kernel="linear"), n_inner_splits=4,

@@ -14,7 +14,7 @@ from sklearn import metrics as skm
 from sklearn.dummy import DummyClassifier
 from sklearn.linear_model import LogisticRegression
 
-from workers.learning.metrics import (
+from cairn_science.learning.metrics import (
     _metric_from_confusion,
     block_permutation_test,
     chance_level,
@@ -29,7 +29,7 @@ from workers.learning.metrics import (
     smallest_p,
     summarise,
 )
-from workers.learning.validation import Scheme, outer_folds
+from cairn_science.learning.validation import Scheme, outer_folds
 
 LABELS = ["low", "medium", "high"]
 pytestmark = pytest.mark.filterwarnings("ignore::UserWarning")

@@ -12,9 +12,9 @@ import pytest
 from sklearn.base import BaseEstimator, ClassifierMixin, TransformerMixin
 from sklearn.pipeline import Pipeline
 
-from workers.learning import run as run_module
-from workers.learning.ensembles import GroupStackingClassifier
-from workers.learning.spec import SpecError, TrainingSpec, expand_comparison
+from cairn_science.learning import run as run_module
+from cairn_science.learning.ensembles import GroupStackingClassifier
+from cairn_science.learning.spec import SpecError, TrainingSpec, expand_comparison
 
 SEEN = []
 
@@ -322,7 +322,7 @@ def test_comparison_grid_expands_with_baselines():
 def test_a_class_with_too_few_participants_is_refused():
     frame = table(n_people=3)
     data = run_module.prepare_data(frame, spec())
-    from workers.learning.validation import SchemeError
+    from cairn_science.learning.validation import SchemeError
 
     with pytest.raises((run_module.DataError, SchemeError), match="participant"):
         run_module.folds_for(spec(), data)

@@ -13,7 +13,7 @@ from sklearn.model_selection import (
     StratifiedGroupKFold,
 )
 
-from workers.learning.validation import (
+from cairn_science.learning.validation import (
     SCHEMES,
     Fold,
     Scheme,

@@ -9,10 +9,7 @@ import mne
 import numpy as np
 import pytest
 
-from fixtures.demo import SITES
-from fixtures.demo.protocol import draw_person
-from fixtures.demo.signals import simulate_recording
-from workers.qc import (
+from cairn_science.qc import (
     CODE_VERSION,
     QCSettings,
     check_amplitude_factor,
@@ -28,16 +25,19 @@ from workers.qc import (
     run_qc,
     run_qc_array,
 )
-from workers.qc.checks import broadband_factor, check_jumps, find_jumps
-from workers.qc.positions import (
+from cairn_science.qc.checks import broadband_factor, check_jumps, find_jumps
+from cairn_science.qc.positions import (
     nearest_neighbours,
     on_unit_sphere,
     resolve_positions,
     spline_interpolation_matrix,
     template_position,
 )
-from workers.qc.signals import highpass, lowpass, welch_spectrum
-from workers.qc.verdict import decide_verdict, effective_verdict
+from cairn_science.qc.signals import highpass, lowpass, welch_spectrum
+from cairn_science.qc.verdict import decide_verdict, effective_verdict
+from fixtures.demo import SITES
+from fixtures.demo.protocol import draw_person
+from fixtures.demo.signals import simulate_recording
 
 SFREQ_HZ = 250.0
 NAMES_16 = ("Fp1 Fp2 F3 Fz F4 FCz C3 Cz C4 T7 T8 P3 Pz P4 O1 O2").split()

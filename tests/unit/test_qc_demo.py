@@ -13,13 +13,13 @@ import numpy as np
 import pytest
 from scipy.stats import spearmanr
 
+from cairn_science.qc import run_qc
 from fixtures.demo import SITES, DemoScale, generate
 from fixtures.demo.bids_output import build_raw
 from fixtures.demo.protocol import draw_person
 from fixtures.demo.scenario import BLINK_RATE_GAIN
 from fixtures.demo.signals import electrode_positions, simulate_recording
 from tests.helpers import demo_recordings
-from workers.qc import run_qc
 
 pytestmark = pytest.mark.filterwarnings("ignore")
 

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from workers.qc import run_qc
+from cairn_science.qc import run_qc
 
 pyedflib = pytest.importorskip("pyedflib")
 SOURCE = Path(pyedflib.__file__).parent / "data" / "test_generator.edf"

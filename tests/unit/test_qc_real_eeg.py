@@ -9,9 +9,9 @@ import mne
 import numpy as np
 import pytest
 
+from cairn_science.qc import QCSettings, run_qc
+from cairn_science.qc.signals import welch_spectrum
 from tests.real_eeg import EEGLAB_LONG_MAINS_HZ, read_long_recording
-from workers.qc import QCSettings, run_qc
-from workers.qc.signals import welch_spectrum
 
 #: Channels we may flag that pyprep (ransac off) does not, each with its reason. Empty: on
 #: this recording every channel we flag must be one pyprep flags too.

@@ -15,12 +15,12 @@ import numpy as np
 import pytest
 from scipy import signal
 
+from cairn_science.qc import QCSettings, run_qc
 from fixtures.demo import SITES
 from fixtures.demo.bids_output import build_raw
 from fixtures.demo.protocol import draw_person
 from fixtures.demo.signals import colored_noise, simulate_recording
 from tests.helpers import demo_recordings
-from workers.qc import QCSettings, run_qc
 
 pytestmark = pytest.mark.filterwarnings("ignore")
 

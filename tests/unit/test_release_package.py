@@ -16,9 +16,9 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import StandardScaler
 
-from workers.learning.canonical import skops_bytes, trusted_types
-from workers.learning.spec import TrainingSpec
-from workers.release import (
+from cairn_science.learning.canonical import skops_bytes, trusted_types
+from cairn_science.learning.spec import TrainingSpec
+from cairn_science.release import (
     ARCHIVE_MEMBERS,
     SCIENCE_DEPENDENCIES,
     bundle,

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from workers.signal import (
+from cairn_science.signal import (
     ChannelError,
     PrepSettings,
     cut_windows,

@@ -5,7 +5,7 @@ def fill(apps, schema_editor):
     """An archive for each release stored before releases had one, from its stored files
     (the requirements are those installed when the migration runs)."""
     from portal.datasets import blobs
-    from workers.release import bundle, release_requirements
+    from cairn_science.release import bundle, release_requirements
 
     ModelRelease = apps.get_model("training", "ModelRelease")
     requirements = None

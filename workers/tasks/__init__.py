@@ -1,1 +1,0 @@
-"""Celery glue: load inputs, call a pure function from ``workers``, store outputs."""
