@@ -316,5 +316,8 @@ def test_matrix_size(world):
     with_args = [name for name, rule in RULES.items()
                  if rule.level not in ("public", "account", "list")]
     requests = sum(len(_variants(name, world["data"]["own"])) for name in with_args)
+    print(f"\naccess matrix: {len(RULES)} URL patterns, {len(with_args)} with object, site or "
+          f"study arguments -> {requests} URL variants x {len(SCOPES)} scopes x {len(ROLES)} "
+          f"roles = {requests * len(SCOPES) * len(ROLES)} requests")
     assert len(with_args) >= 45
     assert requests * len(SCOPES) * len(ROLES) > 1000
