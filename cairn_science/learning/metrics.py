@@ -2,20 +2,22 @@
 (also of choosing the best of several models), participant bootstrap intervals, the
 corrected resampled t-test and Holm's adjustment.
 
-Scores come from :mod:`sklearn.metrics`. Undefined values follow scikit-learn: a recall or F1
-whose denominator is zero is 0 (``zero_division=0``; look at ``support`` to tell such a 0
-from a real one) and Cohen's kappa is NaN when both raters put every row in one class.
+Scores are computed as :mod:`sklearn.metrics` computes them (the same formulas, on the same
+confusion matrices, summed in the same order, so the values are equal to the last bit; the
+tests compare them with scikit-learn's functions), from labels encoded once as class indices:
+scikit-learn's own functions re-check string labels on every call, which dominated a
+training evaluation. Undefined values follow scikit-learn: a recall or F1 whose denominator is
+zero is 0 (``zero_division=0``; look at ``support`` to tell such a 0 from a real one) and
+Cohen's kappa is NaN when both raters put every row in one class.
 """
 
 from __future__ import annotations
 
 import math
-import warnings
 from collections.abc import Callable
 
 import numpy as np
 from scipy import stats
-from sklearn import metrics as skm
 
 METRICS = ("accuracy", "balanced_accuracy", "macro_f1", "kappa")
 FEW_FOLDS = 10
@@ -36,6 +38,12 @@ def _as_1d(values, field):
 
 
 def _pair(y_true, y_pred, labels):
+    y_true, y_pred, labels, _, _ = _encoded_pair(y_true, y_pred, labels)
+    return y_true, y_pred, labels
+
+
+def _encoded_pair(y_true, y_pred, labels):
+    """Checked (y_true, y_pred, labels) with the class index of every y_true and y_pred."""
     y_true = _as_1d(y_true, "y_true")
     y_pred = _as_1d(y_pred, "y_pred")
     if y_true.shape != y_pred.shape:
@@ -44,9 +52,8 @@ def _pair(y_true, y_pred, labels):
     if y_true.size == 0:
         raise ValueError("y_true is empty; scores need at least one row")
     labels = _labels(labels)
-    for field, arr in (("y_true", y_true), ("y_pred", y_pred)):
-        _codes(arr, labels, field)
-    return y_true, y_pred, labels
+    return (y_true, y_pred, labels, _codes(y_true, labels, "y_true"),
+            _codes(y_pred, labels, "y_pred"))
 
 
 def _labels(labels):
@@ -139,40 +146,85 @@ def _metric_fn(metric, labels) -> Callable:
 # --------------------------------------------------------------------------- scores
 
 
+def _scores_of_codes(t_idx: np.ndarray, p_idx: np.ndarray, labels: np.ndarray,
+                     order: np.ndarray) -> dict:
+    """:func:`scores` from class indices into ``labels``; ``order`` sorts ``labels``.
+
+    Each value is computed with scikit-learn's formula and summation order (1.9): accuracy
+    is the share of equal pairs; balanced accuracy the mean, over the classes present in
+    y_true in sorted order, of diag / row sum; macro F1 the mean, over the classes present
+    in y_true or y_pred in sorted order, of 2 tp / (true + predicted); kappa is
+    1 - sum(w * C) / sum(w * E) on the confusion matrix in ``labels`` order, with w = 1 off
+    the diagonal and E the outer product of the column and row sums over the total, NaN
+    when that denominator is 0.
+    """
+    k = labels.size
+    n = int(t_idx.size)
+    cm = np.bincount(t_idx * k + p_idx, minlength=k * k).reshape(k, k)
+    tp = np.diagonal(cm)
+    true_n = cm.sum(axis=1)
+    pred_n = cm.sum(axis=0)
+    # sorted label order, as scikit-learn's unique_labels gives without ``labels``
+    cm_sorted = cm[np.ix_(order, order)].astype(float)
+    tp_s, true_s, pred_s = tp[order], true_n[order], pred_n[order]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_class = np.diagonal(cm_sorted) / cm_sorted.sum(axis=1)
+    balanced = float(np.mean(per_class[~np.isnan(per_class)]))
+    present = (true_s + pred_s) > 0
+    f1 = (2.0 * tp_s[present].astype(float)) / (1.0 * true_s[present].astype(float)
+                                                 + pred_s[present].astype(float))
+    macro_f1 = float(np.average(f1))
+    confusion = cm.astype(float)
+    sum0 = np.sum(confusion, axis=0)
+    sum1 = np.sum(confusion, axis=1)
+    total = np.sum(sum0)
+    kappa = math.nan
+    if total != 0:
+        weights = np.ones((k, k))
+        np.fill_diagonal(weights, 0)
+        denominator = np.sum(weights * (np.outer(sum0, sum1) / total))
+        if denominator != 0:
+            kappa = float(1 - np.sum(weights * confusion) / denominator)
+    safe = np.where(true_n > 0, true_n, 1).astype(float)
+    recall = np.where(true_n > 0, tp / safe, 0.0)
+    return {
+        "accuracy": float(np.average(t_idx == p_idx)),
+        "balanced_accuracy": balanced,
+        "macro_f1": macro_f1,
+        "kappa": kappa,
+        "confusion": cm.tolist(),
+        "recall": {_plain(lab): float(r) for lab, r in zip(labels, recall, strict=True)},
+        "support": {_plain(lab): int(c) for lab, c in zip(labels, true_n, strict=True)},
+        "n": n,
+    }
+
+
 def scores(y_true, y_pred, *, labels) -> dict:
     """Accuracy, balanced accuracy, macro F1, Cohen's kappa, per-class recall and the
-    confusion matrix (rows true, columns predicted, in ``labels`` order), from scikit-learn.
+    confusion matrix (rows true, columns predicted, in ``labels`` order), equal to
+    scikit-learn's ``accuracy_score``, ``balanced_accuracy_score``, ``f1_score(average=
+    "macro", zero_division=0)``, ``cohen_kappa_score(labels=labels)``, ``recall_score(
+    labels=labels, average=None, zero_division=0)`` and ``confusion_matrix(labels=labels)``.
 
     ``balanced_accuracy`` and ``macro_f1`` use scikit-learn's defaults (classes present in
     y_true, resp. in y_true or y_pred); ``recall`` lists every label, 0 where the label has no
     true rows (see ``support``); ``kappa`` is NaN when undefined.
     """
-    y_true, y_pred, labels = _pair(y_true, y_pred, labels)
-    with warnings.catch_warnings():
-        # one-class subsets (a site, a fold) warn about undefined values we document
-        warnings.simplefilter("ignore")
-        recall = skm.recall_score(y_true, y_pred, labels=labels, average=None, zero_division=0)
-        result = {
-            "accuracy": float(skm.accuracy_score(y_true, y_pred)),
-            "balanced_accuracy": float(skm.balanced_accuracy_score(y_true, y_pred)),
-            "macro_f1": float(skm.f1_score(y_true, y_pred, average="macro", zero_division=0)),
-            "kappa": float(skm.cohen_kappa_score(y_true, y_pred, labels=labels)),
-            "confusion": skm.confusion_matrix(y_true, y_pred, labels=labels).tolist(),
-        }
-    result["recall"] = {_plain(lab): float(r) for lab, r in zip(labels, recall, strict=True)}
-    result["support"] = {_plain(lab): int(np.sum(y_true == lab)) for lab in labels}
-    result["n"] = int(y_true.size)
-    return result
+    _, _, labels, t_idx, p_idx = _encoded_pair(y_true, y_pred, labels)
+    return _scores_of_codes(t_idx, p_idx, labels, np.argsort(labels, kind="stable"))
 
 
 def per_site(y_true, y_pred, sites, *, labels) -> dict:
-    """:func:`scores` for each site's rows, keyed by site (sorted)."""
-    y_true, y_pred, labels = _pair(y_true, y_pred, labels)
+    """:func:`scores` for each site's rows, keyed by site (sorted); labels encoded once."""
+    y_true, _, labels, t_idx, p_idx = _encoded_pair(y_true, y_pred, labels)
     sites = _as_1d(sites, "sites")
     if sites.size != y_true.size:
         raise ValueError(f"sites must have one value per row ({y_true.size}), got {sites.size}")
-    return {_plain(site): scores(y_true[sites == site], y_pred[sites == site], labels=labels)
-            for site in np.unique(sites)}
+    order = np.argsort(labels, kind="stable")
+    site_ids, site_of_row = np.unique(sites, return_inverse=True)
+    return {_plain(site): _scores_of_codes(t_idx[site_of_row == i], p_idx[site_of_row == i],
+                                           labels, order)
+            for i, site in enumerate(site_ids)}
 
 
 def chance_level(y, *, labels) -> dict:

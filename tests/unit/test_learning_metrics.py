@@ -102,6 +102,56 @@ def test_per_site_is_scores_of_each_sites_rows():
             skm.cohen_kappa_score(y_true[rows], y_pred[rows]), abs=1e-12)
 
 
+def _sklearn_scores(y_true, y_pred, labels):
+    """Reference: scikit-learn 1.9.1's own metric functions, called as scores() documents."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return {
+            "accuracy": skm.accuracy_score(y_true, y_pred),
+            "balanced_accuracy": skm.balanced_accuracy_score(y_true, y_pred),
+            "macro_f1": skm.f1_score(y_true, y_pred, average="macro", zero_division=0),
+            "kappa": skm.cohen_kappa_score(y_true, y_pred, labels=labels),
+            "recall": skm.recall_score(y_true, y_pred, labels=labels, average=None,
+                                       zero_division=0).tolist(),
+            "confusion": skm.confusion_matrix(y_true, y_pred, labels=labels).tolist(),
+        }
+
+
+@pytest.mark.parametrize("labels", [LABELS, ["a", "b"], ["w4", "w1", "w3", "w2", "w0"],
+                                    [3, 1, 2]])
+def test_scores_and_per_site_are_bit_identical_to_sklearn(labels):
+    """Reference: scikit-learn 1.9.1 metric functions. Labels are encoded once and the
+    scores computed from one confusion matrix; every value must equal scikit-learn's exactly
+    (==, not approx), on random subsets that lack classes on one or both sides, with labels
+    in report order (not sorted), string or integer."""
+    rng = np.random.default_rng(11)
+    labels = np.asarray(labels)
+    for _ in range(60):
+        n = int(rng.integers(1, 80))
+        y_true = rng.choice(labels[: int(rng.integers(1, labels.size + 1))], size=n)
+        y_pred = np.where(rng.random(n) < 0.6, y_true, rng.choice(labels, size=n))
+        sites = rng.choice(["s1", "s2", "s3"], size=n)
+        expected = _sklearn_scores(y_true, y_pred, labels)
+        got = scores(y_true, y_pred, labels=labels)
+        for key in ("accuracy", "balanced_accuracy", "macro_f1"):
+            assert got[key] == expected[key], key
+        assert got["kappa"] == expected["kappa"] or (
+            math.isnan(got["kappa"]) and math.isnan(expected["kappa"]))
+        assert list(got["recall"].values()) == expected["recall"]
+        assert got["confusion"] == expected["confusion"]
+        for site, result in per_site(y_true, y_pred, sites, labels=labels).items():
+            rows = sites == site
+            ref = _sklearn_scores(y_true[rows], y_pred[rows], labels)
+            assert result["balanced_accuracy"] == ref["balanced_accuracy"]
+            assert result["macro_f1"] == ref["macro_f1"]
+            assert result["accuracy"] == ref["accuracy"]
+            assert result["confusion"] == ref["confusion"]
+            assert result["kappa"] == ref["kappa"] or (
+                math.isnan(result["kappa"]) and math.isnan(ref["kappa"]))
+
+
 @pytest.mark.parametrize("metric", ["accuracy", "balanced_accuracy", "macro_f1", "kappa"])
 def test_metrics_from_confusion_matrices_equal_sklearn(metric):
     """Reference: scikit-learn 1.9.1 metric functions; the bootstrap computes its scores from
