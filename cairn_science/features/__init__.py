@@ -6,7 +6,8 @@ one prepared recording's windows into a table; each family module
 :mod:`.indices`) lists its features in ``FEATURES``.
 """
 
-from .extract import CODE_VERSION, FeatureRequest, compute_features, describe_columns
+from ..versions import FEATURES_CODE_VERSION as CODE_VERSION
+from .extract import FeatureRequest, compute_features, describe_columns
 from .registry import Band, Feature, get_feature, registry
 
 __all__ = ["CODE_VERSION", "Band", "Feature", "FeatureRequest", "compute_features",

@@ -15,7 +15,6 @@ import numpy as np
 from .batch import DEFAULT_WELCH_SEGMENT_S, WindowBatch
 from .registry import Band, get_feature, registry
 
-CODE_VERSION = "features-1"
 MICROVOLTS_PER_VOLT = 1e6
 
 

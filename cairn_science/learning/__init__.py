@@ -6,5 +6,6 @@ Pure scikit-learn and numpy, no Django: :mod:`.learners` (the single learners),
 request as data) and :mod:`.run` (evaluating a request on a table).
 """
 
-#: Part of every training run's record; bump when results change for the same spec.
-CODE_VERSION = "learning-3"
+from ..versions import LEARNING_CODE_VERSION as CODE_VERSION
+
+__all__ = ["CODE_VERSION"]

@@ -5,9 +5,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..versions import QC_CODE_VERSION as CODE_VERSION
 from .segments import Blinks, Segment
-
-CODE_VERSION = "qc-2"
 
 
 def _significant(value, digits=4):

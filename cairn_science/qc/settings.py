@@ -1,9 +1,9 @@
 """Quality-check thresholds of a study protocol, as one frozen, hashable parameter object."""
 
 import dataclasses
-import hashlib
-import json
 from dataclasses import dataclass
+
+from ..canonical_json import canonical_sha256
 
 _SHARES = (
     "bad_channel_share_review",
@@ -199,5 +199,4 @@ class QCSettings:
 
     def digest(self):
         """sha256 of the settings as canonical JSON (sorted keys, no spaces)."""
-        text = json.dumps(self.as_dict(), sort_keys=True, separators=(",", ":"))
-        return hashlib.sha256(text.encode("utf-8")).hexdigest()
+        return canonical_sha256(self.as_dict(), ascii=True, allow_nan=True)

@@ -14,7 +14,6 @@ store; cutting off the newest events is then detected against the last anchor.
 
 import datetime
 import hashlib
-import json
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,6 +21,7 @@ from pathlib import Path
 from django.conf import settings
 from django.db import IntegrityError, transaction
 
+from cairn_science.canonical_json import canonical_bytes
 from portal.audit.models import ChainHead, ChainLink, Event, PendingLink
 
 GENESIS = "0" * 64
@@ -39,8 +39,7 @@ def canonical(values):
     """The canonical bytes of an event given as {field: value} (FIELDS)."""
     data = {name: values[name] for name in FIELDS}
     data["at"] = _utc(data["at"])
-    return json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False).encode("utf-8")
+    return canonical_bytes(data)
 
 
 def link_hash(prev_hash, values):

@@ -1,34 +1,20 @@
 """Writing audit events. Every state change in Cairn goes through :func:`record`."""
 
-import hashlib
-import json
 import socket
 
 from django.db import transaction
 
+from cairn_science.canonical_json import canonical_sha256 as _canonical_sha256
+from cairn_science.canonical_json import without_negative_zero
 from portal.audit.models import ActorKind, Event
 from portal.audit.versions import code_version, library_versions
-
-
-def _stored_form(value):
-    """The value as the database gives it back: PostgreSQL's JSON numbers have no negative
-    zero, so -0.0 is stored (and hashed) as 0.0."""
-    if isinstance(value, float) and value == 0.0:
-        return 0.0
-    if isinstance(value, dict):
-        return {key: _stored_form(item) for key, item in value.items()}
-    if isinstance(value, list | tuple):
-        return [_stored_form(item) for item in value]
-    return value
 
 
 def canonical_sha256(value):
     """sha256 of the canonical JSON of a JSON-ready value (sorted keys, no NaN, no negative
     zero): the content hash events give for results stored as JSON, equal before and after
     the database stored them."""
-    text = json.dumps(_stored_form(value), sort_keys=True, separators=(",", ":"),
-                      ensure_ascii=False, allow_nan=False)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return _canonical_sha256(without_negative_zero(value))
 
 
 def actor_snapshot(user):

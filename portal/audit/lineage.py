@@ -12,9 +12,9 @@ manifest hash, counts of files and recordings) without its files, participants, 
 results or the people who uploaded it.
 """
 
-import json
-
 from prov.model import ProvDocument
+
+from cairn_science.canonical_json import canonical_text
 
 NAMESPACE = "https://cairn.invalid/ns#"
 KINDS = {"training": "training.TrainingRun", "release": "training.ModelRelease",
@@ -22,7 +22,7 @@ KINDS = {"training": "training.TrainingRun", "release": "training.ModelRelease",
 
 
 def _json(value):
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+    return canonical_text(value, allow_nan=True)
 
 
 class Lineage:

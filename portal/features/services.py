@@ -4,11 +4,10 @@ The web process never imports the signal libraries: parameters are checked here 
 data, and the worker checks them again when it builds its settings objects.
 """
 
-import hashlib
-import json
-
 from django.db import transaction
 
+from cairn_science.canonical_json import canonical_sha256
+from cairn_science.versions import FEATURES_CODE_VERSION
 from portal.audit.events import record
 from portal.datasets.models import DatasetVersion
 from portal.features.models import FeatureSet, FeatureSetItem
@@ -17,9 +16,6 @@ from portal.quality.models import QCRound
 from portal.quality.services import effective_channels, latest_overrides, runs_of
 from portal.studies.models import current_protocol
 from portal.studies.protocol import DEFAULT_PROTOCOL
-
-#: Must equal ``cairn_science.features.CODE_VERSION`` (a test checks); part of every set's identity.
-FEATURES_CODE_VERSION = "features-1"
 
 PREPROCESSING_FIELDS = ("l_freq_hz", "h_freq_hz", "notch", "analysis_sfreq_hz",
                         "bad_channels", "reference", "window_s", "overlap")
@@ -34,8 +30,7 @@ class FeatureRequestError(ValueError):
 
 
 def canonical_digest(data):
-    text = json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-    return hashlib.sha256(text.encode()).hexdigest()
+    return canonical_sha256(data, allow_nan=True)
 
 
 def channel_key(name):

@@ -1,23 +1,18 @@
 """Starting quality checks for a dataset version, and reading their effective results."""
 
-import hashlib
-import json
-
 from django.db import transaction
 from django.utils import timezone
 
+from cairn_science.canonical_json import canonical_sha256
+from cairn_science.versions import QC_CODE_VERSION
 from portal.audit.events import record
 from portal.jobs.services import enqueue
 from portal.quality.models import ChannelOverride, EffectiveVerdict, QCRound, QCRun, Verdict
 from portal.studies.models import current_protocol
 
-#: Bumped whenever the checks change what they compute; part of every result's identity.
-QC_CODE_VERSION = "qc-2"
-
 
 def settings_digest(qc_settings):
-    canonical = json.dumps(qc_settings, sort_keys=True, separators=(",", ":"))
-    return hashlib.sha256(canonical.encode()).hexdigest()
+    return canonical_sha256(qc_settings, ascii=True, allow_nan=True)
 
 
 def protocol_settings(study):

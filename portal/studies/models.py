@@ -1,18 +1,15 @@
 """Versioned study protocols: every change is a new version; old ones are kept."""
 
-import hashlib
-import json
-
 from django.conf import settings
 from django.db import models, transaction
 from django.utils import timezone
 
+from cairn_science.canonical_json import canonical_sha256
 from portal.studies.protocol import default_protocol, validate_protocol
 
 
 def protocol_digest(data):
-    canonical = json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-    return hashlib.sha256(canonical.encode("utf-8")).hexdigest()
+    return canonical_sha256(data, allow_nan=True)
 
 
 class ProtocolVersion(models.Model):

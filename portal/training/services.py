@@ -5,6 +5,7 @@ import json
 from django.db import transaction
 from django.utils import timezone
 
+from cairn_science.versions import LEARNING_CODE_VERSION
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features.models import FeatureSet
@@ -12,8 +13,8 @@ from portal.features.services import canonical_digest
 from portal.jobs.services import enqueue, jobs_about, state_with_failures
 from portal.training.models import ModelRelease, ReleaseState, TrainingRun
 
-#: Must equal ``cairn_science.learning.CODE_VERSION`` (a test checks).
-TRAINING_CODE_VERSION = "learning-3"
+#: Kept under this name for the modules that import it from here.
+TRAINING_CODE_VERSION = LEARNING_CODE_VERSION
 
 
 class TrainingRequestError(ValueError):

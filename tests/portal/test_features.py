@@ -16,7 +16,6 @@ from portal.datasets import blobs
 from portal.datasets.services import submit_path
 from portal.features.models import FeatureSet, RecordingFeatures
 from portal.features.services import (
-    FEATURES_CODE_VERSION,
     FeatureRequestError,
     request_feature_set,
 )
@@ -54,12 +53,6 @@ def compute(versions, **kwargs):
 def table_of(feature_set):
     with blobs.open_blob(feature_set.table_sha256) as fh:
         return pd.read_parquet(fh)
-
-
-def test_code_versions_agree():
-    from cairn_science.features import CODE_VERSION
-
-    assert FEATURES_CODE_VERSION == CODE_VERSION
 
 
 def test_two_sites_end_to_end(client, demo_small):

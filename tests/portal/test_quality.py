@@ -122,13 +122,6 @@ def test_pages_and_plots_render_and_plots_are_cached(client, checked, settings):
     assert sorted((settings.VAR_DIR / "plots").glob("*.svg")) == cached
 
 
-def test_portal_and_checks_agree_on_the_code_version():
-    from cairn_science.qc import CODE_VERSION
-    from portal.quality.services import QC_CODE_VERSION
-
-    assert QC_CODE_VERSION == CODE_VERSION
-
-
 def test_channels_the_site_marked_bad_are_honoured(demo_small, tmp_path, client):
     """A `status` of bad in *_channels.tsv (BIDS specification) is kept as 'marked by site'."""
     info = demo_small.sites[0]

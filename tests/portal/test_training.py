@@ -18,7 +18,6 @@ from portal.audit.models import Event
 from portal.datasets import blobs
 from portal.training.models import ModelRelease, TrainingRun
 from portal.training.services import (
-    TRAINING_CODE_VERSION,
     TrainingRequestError,
     rerun,
     run_report,
@@ -64,12 +63,6 @@ def finished(spec, user=None):
     run = start_run(spec, user=user)
     run_all_pending(TRAINING_JOBS)
     return TrainingRun.objects.get(pk=run.pk)
-
-
-def test_code_versions_agree():
-    from cairn_science.learning import CODE_VERSION
-
-    assert TRAINING_CODE_VERSION == CODE_VERSION
 
 
 def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
