@@ -76,6 +76,7 @@ INSTALLED_APPS = [
     "portal.features",
     "portal.training",
     "portal.dashboard",
+    "portal.demo",
 ]
 
 MIDDLEWARE = [

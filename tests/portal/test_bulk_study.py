@@ -10,8 +10,8 @@ from django.core.management import CommandError, call_command
 from django.db.models import Count
 from django.urls import reverse
 
-from portal.dashboard.bulk import PASSWORD, VERDICT_SHARES, BulkStudyError, _scores, make_study
 from portal.datasets.models import Block, DatasetVersion, Recording, Upload, UploadState
+from portal.demo.bulk import PASSWORD, VERDICT_SHARES, BulkStudyError, _scores, make_study
 from portal.quality.models import ChannelOverride, QCRound, QCRun
 from portal.quality.services import runs_of
 

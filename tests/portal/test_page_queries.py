@@ -2,14 +2,14 @@
 size: the same count for an invented study of 100 recordings and one of 1,000 (three sites
 each), pinned so that a change which adds a query per row shows up here.
 
-Plumbing on invented rows (portal.dashboard.bulk): nothing of the science is checked here.
+Plumbing on invented rows (portal.demo.bulk): nothing of the science is checked here.
 """
 
 import pytest
 from django.urls import reverse
 
-from portal.dashboard.bulk import make_study
 from portal.datasets.models import DatasetVersion
+from portal.demo.bulk import make_study
 from portal.features.models import FeatureSet
 from portal.quality.models import QCRound
 from portal.training.models import TrainingRun

@@ -3,7 +3,7 @@ import time
 
 from django.core.management.base import BaseCommand, CommandError
 
-from portal.dashboard.bulk import PASSWORD, BulkStudyError, make_study
+from portal.demo.bulk import PASSWORD, BulkStudyError, make_study
 
 
 class Command(BaseCommand):

@@ -7,20 +7,7 @@ import time
 from django.conf import settings
 from django.core.management.base import BaseCommand, CommandError
 
-FEATURES_MARKER = "features-wanted"
-TRAINING_MARKER = "training-wanted"
-#: The demo's first comparison run: low against high workload, participants held out.
-DEMO_SPEC = {
-    "label": {"kind": "level", "classes": ["low", "high"]},
-    "features": {"include": ["*.relative_power.*", "engagement_index.*"]},
-    "normalisation": {"participant": "mean"},
-    "validation": {"scheme": "grouped_kfold", "n_splits": 5},
-    "comparison": {"strategies": ["bagging", "stacking"], "learners": ["lda", "logistic"],
-                   "members": [5, 10]},
-    "statistics": {"paired_test": True, "permutations": 20},
-    "release": {"pooled": True, "per_site": True},
-    "seed": 0,
-}
+from portal.demo.consortium import DEMO_SPEC, FEATURES_MARKER, TRAINING_MARKER
 
 
 class Command(BaseCommand):

@@ -10,11 +10,9 @@ from portal.accounts.models import AccountFlags, Site
 from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import submit_path
+from portal.demo.consortium import FEATURES_MARKER, STUDY_NAME, STUDY_SLUG, TRAINING_MARKER
 from portal.features.models import FeatureSet
 from portal.studies.models import current_protocol, save_protocol
-
-STUDY_SLUG = "rail-workload"
-STUDY_NAME = "Signalling control-room workload under timetable disruption"
 
 
 class Command(BaseCommand):
@@ -64,11 +62,6 @@ class Command(BaseCommand):
             self.stdout.write(f"submitted {what}: upload {upload.pk}")
         # serve_demo asks for the consortium's feature set once the quality checks are done,
         # then starts a first training run on it.
-        from portal.dashboard.management.commands.serve_demo import (
-            FEATURES_MARKER,
-            TRAINING_MARKER,
-        )
-
         if not FeatureSet.objects.filter(study=study).exists():
             (Path(settings.VAR_DIR) / "demo" / FEATURES_MARKER).write_text(STUDY_SLUG)
             (Path(settings.VAR_DIR) / "demo" / TRAINING_MARKER).write_text(STUDY_SLUG)
