@@ -35,6 +35,15 @@ def _limit_threads(**_):
 
 
 @app.on_after_configure.connect
+def _make_broker_folders(sender, **_):
+    """The embedded default's broker folders, made before the first message is sent or read."""
+    if str(sender.conf.broker_url or "").startswith("filesystem://"):
+        from portal.embedded import make_broker_folders
+
+        make_broker_folders(sender.conf.broker_transport_options or {})
+
+
+@app.on_after_configure.connect
 def _schedule_sweeper(sender, **_):
     from django.conf import settings
 

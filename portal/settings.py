@@ -6,10 +6,15 @@ under ``var/``. Deployments and CI set ``DATABASE_URL`` (PostgreSQL) and ``CELER
 """
 
 import os
+import re
+import warnings
 from pathlib import Path
 
 import dj_database_url
 from django.core.exceptions import ImproperlyConfigured
+from django.utils.functional import lazy
+
+from portal.embedded import secret_key
 
 BASE_DIR = Path(__file__).resolve().parent.parent
 VAR_DIR = Path(os.environ.get("CAIRN_VAR_DIR", BASE_DIR / "var")).resolve()
@@ -47,15 +52,9 @@ SECRET_KEY = os.environ.get("SECRET_KEY", "")
 if not SECRET_KEY:
     if not DEBUG and not env_bool("CAIRN_EMBEDDED", True):
         raise ImproperlyConfigured("SECRET_KEY must be set in a deployment (CAIRN_EMBEDDED=false)")
-    # Embedded default: a key kept in var/ so sessions survive restarts of the demo.
-    VAR_DIR.mkdir(parents=True, exist_ok=True)
-    key_file = VAR_DIR / "secret_key"
-    if not key_file.exists():
-        from django.core.management.utils import get_random_secret_key
-
-        key_file.write_text(get_random_secret_key() + get_random_secret_key())
-        key_file.chmod(0o600)
-    SECRET_KEY = key_file.read_text().strip()
+    # Embedded default: a key kept in var/ so sessions survive restarts of the demo, read (or
+    # made) the first time something signs; settings write no file when they load.
+    SECRET_KEY = lazy(secret_key, str)(VAR_DIR / "secret_key")
 
 ALLOWED_HOSTS = env_list("ALLOWED_HOSTS", "127.0.0.1,localhost")
 CSRF_TRUSTED_ORIGINS = env_list("CSRF_TRUSTED_ORIGINS")
@@ -119,10 +118,10 @@ DATABASE_URL = os.environ.get("DATABASE_URL", "")
 if DATABASE_URL:
     DATABASES = {"default": dj_database_url.parse(DATABASE_URL, conn_max_age=60)}
 else:
-    VAR_DIR.mkdir(parents=True, exist_ok=True)
     DATABASES = {
         "default": {
-            "ENGINE": "django.db.backends.sqlite3",
+            # Django's SQLite backend that makes the file's folder when it first connects.
+            "ENGINE": "portal.embedded.sqlite3",
             "NAME": VAR_DIR / "cairn.sqlite3",
             # Web and worker processes share the file: wait for locks instead of failing.
             "OPTIONS": {"timeout": 30, "transaction_mode": "IMMEDIATE", "init_command": (
@@ -151,9 +150,10 @@ USE_TZ = True
 STATIC_URL = "static/"
 STATIC_ROOT = Path(os.environ.get("CAIRN_STATIC_ROOT", VAR_DIR / "static"))
 STATICFILES_DIRS = [BASE_DIR / "portal" / "static"]
-STATIC_ROOT.mkdir(parents=True, exist_ok=True)
 # Serve straight from the source folders unless collectstatic was run for a deployment.
 WHITENOISE_USE_FINDERS = env_bool("CAIRN_STATIC_FROM_SOURCE", not DATABASE_URL or DEBUG)
+if WHITENOISE_USE_FINDERS:  # then STATIC_ROOT is only collectstatic's target: no folder yet
+    warnings.filterwarnings("ignore", message=re.escape(f"No directory at: {STATIC_ROOT}"))
 STORAGES = {
     "default": {"BACKEND": "django.core.files.storage.FileSystemStorage"},
     "staticfiles": {"BACKEND": "whitenoise.storage.CompressedStaticFilesStorage"},
@@ -206,9 +206,8 @@ CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")
 if CELERY_BROKER_URL:
     CELERY_BROKER_TRANSPORT_OPTIONS = {}
 else:
+    # The folders are made when Celery first reads its configuration (portal.celery).
     BROKER_DIR = VAR_DIR / "broker"
-    for sub in ("queue", "processed", "control"):
-        (BROKER_DIR / sub).mkdir(parents=True, exist_ok=True)
     CELERY_BROKER_URL = "filesystem://"
     CELERY_BROKER_TRANSPORT_OPTIONS = {
         "data_folder_in": str(BROKER_DIR / "queue"),

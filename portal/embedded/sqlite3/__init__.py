@@ -1,0 +1,1 @@
+"""The embedded default's SQLite backend (see base.py)."""
