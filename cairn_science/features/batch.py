@@ -68,8 +68,3 @@ class WindowBatch:
         freqs, power = self.welch
         mask = (freqs >= l_freq_hz) & (freqs < h_freq_hz)
         return power[..., mask].sum(axis=-1) * (freqs[1] - freqs[0])
-
-    def channel_index(self, names):
-        """Indices of ``names`` present in the batch (case-insensitive), in batch order."""
-        wanted = {name.lower() for name in names}
-        return [i for i, name in enumerate(self.ch_names) if name.lower() in wanted]

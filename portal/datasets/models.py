@@ -69,10 +69,6 @@ class Upload(models.Model):
     def is_final(self):
         return self.state in FINAL_UPLOAD_STATES
 
-    @property
-    def received_bytes(self):
-        return sum(end - start for start, end in self.received)
-
     def errors_by_file(self):
         """Errors grouped by file, in the order they were found."""
         groups = {}

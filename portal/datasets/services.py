@@ -463,7 +463,7 @@ def expire_abandoned(now=None, *, dry_run=False):
             _mark_failed(
                 upload, failure=f"abandoned: no chunk for {after_s / 3600:g} hours; start again",
                 next_step="Start the upload again: announce it anew and send all its chunks.",
-                params={"abandoned_after_s": after_s, "received_bytes": upload.received_bytes},
+                params={"abandoned_after_s": after_s, "received": upload.received},
             )
             discard_staging_on_commit(upload)
     return ended
