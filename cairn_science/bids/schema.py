@@ -178,8 +178,10 @@ def eeg_sidecar_fields():
     return tuple(required), tuple(recommended)
 
 
-def metadata_spec(field):
-    """The schema's value definition of a JSON sidecar field (type, enum, anyOf, limits)."""
+@cache
+def metadata_spec(field: str) -> dict | None:
+    """The schema's value definition of a JSON sidecar field (type, enum, anyOf, limits);
+    built once per field (callers must not change the dict)."""
     metadata = load().objects.metadata
     return metadata[field].to_dict() if field in metadata else None
 

@@ -19,6 +19,7 @@ from .headers import (
     HeaderFacts,
     check_brainvision_structure,
     check_edf_structure,
+    read_header_facts,
     read_with_mne_bids,
     sha256_of,
 )
@@ -32,6 +33,7 @@ from .ratings import (
     read_rating,
     row_matches,
 )
+from .recording import check_table_sizes
 from .report import BlockInfo, Finding, Problem, RecordingInfo, RefusedFile, Report
 from .sidecars import Tree
 from .tables import check_channels, check_events, check_participants, check_scans
@@ -86,6 +88,7 @@ class _Context:
         self.channels = {}
         self.events = {}
         self.missing_recommended = {}
+        self.companions = {}
         self._once = set()
 
     def once(self, *key):
@@ -254,7 +257,7 @@ def _header_problems(ctx, data):
     """
     full = ctx.root / data.path
     try:
-        companion_files(ctx.root, data.path)
+        ctx.companions[data.path] = companion_files(ctx.root, data.path)
     except CompanionError as exc:
         ctx.report.errors.extend(exc.problems)
         return False
@@ -264,14 +267,20 @@ def _header_problems(ctx, data):
             ctx.report.add(severity, data.path, message, code="header.structure")
             fit = fit and severity != "error"
     elif data.extension == ".vhdr":
-        for severity, key, message in check_brainvision_structure(full):
+        for severity, key, message in check_brainvision_structure(
+                full, companions=ctx.companions[data.path]):
             ctx.report.add(severity, data.path, message, field=key, code="header.structure")
             fit = fit and severity != "error"
     return fit
 
 
 def _facts(ctx, data, sha256, *, metadata_trouble):
-    """Header facts from ``known`` (same content seen before) or read with mne-bids.
+    """Header facts from ``known`` (same content seen before), else from Cairn's own header
+    reading (:func:`~cairn_science.bids.headers.read_header_facts`: EDF, BDF, BrainVision),
+    else read with mne-bids (EEGLAB and the corners the own reading leaves to it). The
+    tables and sidecars mne-bids would read are held to the same limits either way
+    (:func:`~cairn_science.bids.recording.check_table_sizes`), so what is refused does not
+    depend on which reader gave the facts.
 
     The file's own structure is checked either way: it is cheap, and mne reads a truncated
     EDF without complaint.
@@ -291,6 +300,10 @@ def _facts(ctx, data, sha256, *, metadata_trouble):
     if not ctx.read_data:
         return None
     try:
+        check_table_sizes(ctx.root, data.path, table_limits=ctx.table_limits)
+        facts = read_header_facts(ctx.root, data.path, companions=ctx.companions.get(data.path))
+        if facts is not None:
+            return facts
         return read_with_mne_bids(ctx.root, data.path, table_limits=ctx.table_limits)
     except RefusedFile as exc:
         for problem in exc.problems:

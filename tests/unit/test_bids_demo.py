@@ -86,8 +86,8 @@ def test_broken_upload_names_sampling_rate_and_extra_channel(demo_small, answer_
 @pytest.mark.parametrize("stored", ["report", "header facts only"])
 def test_known_files_are_not_read_again(demo_small, site_reports, monkeypatch, stored):
     """With ``known`` from an earlier run (whole index entries, or only the header facts a
-    caller keeps), unchanged files (same SHA-256) are not opened with mne-bids and give the
-    same index (common practice, no source)."""
+    caller keeps), unchanged files (same SHA-256) are not opened (by mne-bids or the own
+    header reading) and give the same index (common practice, no source)."""
     site = demo_small.sites[0]
     first = site_reports[site.slug].as_dict()
     keep = ("sha256", "sfreq_hz", "n_channels", "channel_names", "duration_s")
@@ -98,6 +98,7 @@ def test_known_files_are_not_read_again(demo_small, site_reports, monkeypatch, s
         raise AssertionError("read again")
 
     monkeypatch.setattr("cairn_science.bids.validate.read_with_mne_bids", refuse)
+    monkeypatch.setattr("cairn_science.bids.validate.read_header_facts", refuse)
     second = validate_dataset(site.bids_root, scale=DEMO_SCALE, known=known).as_dict()
     assert second["recordings"] == first["recordings"]
     assert second["errors"] == []
