@@ -423,6 +423,9 @@ def _inputs(release, bids_file, *, baseline_file, baseline_windows, site, **kwar
         values = participant_normalise(values, reference)
     if site_stats is not None:
         values = (values - site_stats[0]) / site_stats[1]
+    from cairn_science.learning.recurrent import release_inputs
+
+    values = release_inputs(estimator, values, frame["window_start_s"].to_numpy(dtype=float))
     return estimator, frame[["window_start_s"]].reset_index(drop=True), values
 
 

@@ -254,6 +254,7 @@ def build_estimator(model, *, seed):
 
     from .ensembles import GroupBaggingClassifier, GroupStackingClassifier
     from .learners import make_learner
+    from .recurrent import confine_members
 
     if model.ensemble is None:
         core = make_learner(model.learner, model.params, random_state=seed)
@@ -263,8 +264,8 @@ def build_estimator(model, *, seed):
                                       n_estimators=model.n_members, sample_by=model.sample_by,
                                       voting=model.voting, random_state=seed)
     else:
-        members = [(f"{name}-{i}", make_learner(name, random_state=seed + i))
-                   for i, name in enumerate(model.members)]
+        members = confine_members([(f"{name}-{i}", make_learner(name, random_state=seed + i))
+                                   for i, name in enumerate(model.members)])
         core = GroupStackingClassifier(members, final_estimator=make_learner(
             model.meta, random_state=seed), n_inner_splits=model.n_inner_splits,
             random_state=seed)
@@ -298,9 +299,19 @@ def site_standardise(X, sites, train):
     return out
 
 
+def model_inputs(model, data, X):
+    """``X`` as the model reads it: a model with a recurrent learner also reads each row's
+    recording and window start (sequence keys; the learner builds each row's sequence only
+    from the rows it is given, so never across the fold's parts)."""
+    from .recurrent import uses_sequences, with_sequence_keys
+
+    return with_sequence_keys(X, data.recordings, data.order) if uses_sequences(model) else X
+
+
 def fit_fold(model, data, fold, *, seed, site_standardise_on=False):
     """Fit on the fold's training rows, predict its test rows. Returns (estimator, y_pred)."""
-    X = fold_matrix(data, fold, site_standardise_on=site_standardise_on)
+    X = model_inputs(model, data, fold_matrix(data, fold,
+                                              site_standardise_on=site_standardise_on))
     estimator = build_estimator(model, seed=seed)
     kwargs = {"model__groups": data.participants[fold.train]} if needs_groups(model) else {}
     estimator.fit(X[fold.train], data.y[fold.train], **kwargs)
