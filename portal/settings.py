@@ -162,6 +162,30 @@ STORAGES = {
 # Blobs (uploaded files, derived tables, models): a local folder, content-addressed.
 BLOB_ROOT = Path(os.environ.get("CAIRN_BLOB_ROOT", VAR_DIR / "blobs")).resolve()
 STAGING_ROOT = Path(os.environ.get("CAIRN_STAGING_ROOT", VAR_DIR / "staging")).resolve()
+# --- Where blobs are kept (portal.datasets.blobs) ------------------------------------------
+# "local": the folder BLOB_ROOT (one machine). "s3": any S3-compatible object store, which
+# workers on several machines share; keys are CAIRN_S3_PREFIX + the folder's layout
+# (ab/cd/<sha256>). Without CAIRN_S3_ACCESS_KEY_ID the client's usual credential sources apply.
+BLOB_STORE = os.environ.get("CAIRN_BLOB_STORE", "local").strip().lower()
+if BLOB_STORE not in ("local", "s3"):
+    raise ImproperlyConfigured(f"CAIRN_BLOB_STORE must be local or s3, got {BLOB_STORE!r}")
+S3_ENDPOINT_URL = os.environ.get("CAIRN_S3_ENDPOINT_URL", "").strip() or None
+S3_BUCKET = os.environ.get("CAIRN_S3_BUCKET", "").strip()
+S3_PREFIX = os.environ.get("CAIRN_S3_PREFIX", "blobs/").strip().strip("/")
+S3_PREFIX = f"{S3_PREFIX}/" if S3_PREFIX else ""
+S3_REGION = os.environ.get("CAIRN_S3_REGION", "").strip() or "us-east-1"
+S3_ACCESS_KEY_ID = os.environ.get("CAIRN_S3_ACCESS_KEY_ID", "").strip() or None
+S3_SECRET_ACCESS_KEY = os.environ.get("CAIRN_S3_SECRET_ACCESS_KEY", "").strip() or None
+# Multipart uploads send parts of this size (the protocol's minimum is 5 MiB); memory per
+# upload stays about two parts.
+S3_PART_BYTES = int(env_float("CAIRN_S3_PART_MB", 16) * 1024**2)
+if BLOB_STORE == "s3" and not S3_BUCKET:
+    raise ImproperlyConfigured("CAIRN_BLOB_STORE=s3 needs CAIRN_S3_BUCKET (and usually "
+                               "CAIRN_S3_ENDPOINT_URL and the access key variables)")
+if S3_PART_BYTES < 5 * 1024**2:
+    raise ImproperlyConfigured("CAIRN_S3_PART_MB must be at least 5 (the smallest part an "
+                               f"S3-compatible store accepts), got {S3_PART_BYTES / 1024**2:g}")
+# --- end of blob store settings --------------------------------------------------------------
 UPLOAD_MAX_BYTES = int(env_float("CAIRN_UPLOAD_MAX_BYTES", 50 * 1024**3))
 # Browser uploads are streamed to staging by our own handler; keep Django's in-memory limit
 # small so nothing else buffers a large body.

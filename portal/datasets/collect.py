@@ -15,6 +15,7 @@ from pathlib import Path
 from django.apps import apps
 from django.conf import settings
 
+from portal.datasets import blobs
 from portal.datasets.models import Upload
 from portal.datasets.services import STAGED_STATES, expire_abandoned
 from portal.jobs.models import Job, JobState
@@ -101,11 +102,17 @@ def collect(*, older_than_s=3600.0, dry_run=False):
     cutoff = time.time() - older_than_s
     keep = referenced_blobs()
     items = []
-    root = Path(settings.BLOB_ROOT)
-    candidates = [(p, "blob", None if p.name in keep else "no version or result refers to it")
-                  for p in (root.glob("??/??/*") if root.exists() else [])]
-    candidates += [(p, "blob", "unfinished write") for p in
-                   (root.glob(".incoming-*") if root.exists() else [])]
+    # A blob stored after the references were read is younger than the grace period: it stays.
+    store = blobs.store()
+    for entry, reason in [*((e, None if e.name in keep else "no version or result refers to it")
+                            for e in store.blobs()),
+                          *((e, "unfinished write") for e in store.unfinished())]:
+        if reason is None or entry.modified > cutoff:
+            continue
+        items.append({"kind": "blob", "name": entry.name, "bytes": entry.bytes, "why": reason})
+        if not dry_run:
+            store.remove(entry)
+    candidates = []
     staging = Path(settings.STAGING_ROOT)
     owners = _staging_owners()
     for path in sorted(staging.iterdir()) if staging.exists() else []:
