@@ -17,15 +17,36 @@ windows, is off in the MLP and gradient boosting, and the parameters that would 
 split on are refused (``Learner.refused``).
 """
 
+from __future__ import annotations
+
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+
+from cairn_science.params import (
+    Integral,
+    Interval,
+    ListOf,
+    Options,
+    Problem,
+    Real,
+    raise_for,
+    validate,
+)
 
 
 @dataclass(frozen=True)
 class Learner:
-    """One learner: ``factory(random_state, **params)`` returns an unfitted classifier.
-    ``grouped``: wrapped so that its probabilities come from participant-grouped inner folds
-    (fit needs ``groups``); ``refused``: parameters that would split windows internally."""
+    """One learner, one entry of ``LEARNERS``: ``factory(random_state, **params)`` returns
+    an unfitted classifier with ``defaults`` overridden by a spec's params.
+
+    ``label``: the few words a form shows; ``constraints``: the values a spec's params may
+    take, ``{parameter: [constraint, ...]}`` (:mod:`cairn_science.params`), checked when a
+    spec is submitted; a parameter of the estimator not named here is checked by
+    scikit-learn's own parameter validation then. ``grouped``: wrapped so that its
+    probabilities come from participant-grouped inner folds (fit needs ``groups``);
+    ``refused``: parameters that would split windows internally. A new learner is one more
+    entry with these fields (the training form, the spec check and the README's list read
+    the table)."""
 
     name: str
     description: str
@@ -33,6 +54,13 @@ class Learner:
     factory: Callable
     grouped: bool = False
     refused: tuple = ()
+    label: str = ""
+    constraints: dict = field(default_factory=dict)
+
+    @property
+    def title(self) -> str:
+        """The label, or the name when the entry has none."""
+        return self.label or self.name.replace("_", " ")
 
 
 _WINDOW_SPLIT = ("would draw its internal validation share from windows, so one "
@@ -89,46 +117,139 @@ def _mlp(random_state, **params):
     return MLPClassifier(random_state=random_state, **params)
 
 
+_POSITIVE = Interval(Real, 0, None, closed="neither")
+_NON_NEGATIVE = Interval(Real, 0, None, closed="left")
+_COUNT = Interval(Integral, 1, None, closed="left")
+# The limits below are scikit-learn's own for these parameters (each estimator's
+# ``_parameter_constraints``, scikit-learn 1.9), narrowed where a spec should stay simple
+# (no callables, no arrays); tests/unit/test_params.py compares them with scikit-learn's.
+_SVM = {"C": [_POSITIVE], "kernel": [Options(("linear", "poly", "rbf", "sigmoid"))],
+        "gamma": [Options(("scale", "auto")), _NON_NEGATIVE],
+        "class_weight": [Options(("balanced",)), None]}
+_FOREST = {"n_estimators": [_COUNT], "max_depth": [Interval(Integral, 1, None, closed="left"),
+                                                    None],
+           "min_samples_leaf": [_COUNT], "max_features": [Options(("sqrt", "log2")), None,
+                                                          Interval(Real, 0, 1,
+                                                                   closed="right")],
+           "class_weight": [Options(("balanced", "balanced_subsample")), None]}
 LEARNERS: dict[str, Learner] = {
     learner.name: learner
     for learner in (
         Learner("lda", "Linear discriminant analysis, least squares with Ledoit-Wolf "
                 "shrinkage of the covariance (suits many correlated features, few windows).",
-                {"solver": "lsqr", "shrinkage": "auto"}, _lda),
+                {"solver": "lsqr", "shrinkage": "auto"}, _lda,
+                label="linear discriminant (shrinkage)",
+                constraints={"solver": [Options(("svd", "lsqr", "eigen"))],
+                             "shrinkage": [Options(("auto",)), Interval(Real, 0, 1), None]}),
         Learner("logistic", "L2-regularised logistic regression (lbfgs).",
-                {"C": 1.0, "max_iter": 5000}, _logistic),
+                {"C": 1.0, "max_iter": 5000}, _logistic, label="logistic regression",
+                constraints={"C": [_POSITIVE], "max_iter": [_COUNT],
+                             "class_weight": [Options(("balanced",)), None]}),
         Learner("linear_svm", "Support vector machine, linear kernel; predictions from its "
                 "decision function, probabilities by Platt scaling on 5 inner folds grouped "
                 "by participant, so it can vote softly and be stacked.",
                 {"kernel": "linear", "C": 1.0}, _svc, grouped=True,
-                refused=(("probability", _PLATT),)),
+                refused=(("probability", _PLATT),), label="linear SVM", constraints=_SVM),
         Learner("rbf_svm", "Support vector machine, RBF kernel (gamma='scale'); "
                 "probabilities by Platt scaling on 5 inner folds grouped by participant.",
                 {"kernel": "rbf", "C": 1.0, "gamma": "scale"}, _svc, grouped=True,
-                refused=(("probability", _PLATT),)),
+                refused=(("probability", _PLATT),), label="RBF SVM", constraints=_SVM),
         Learner("knn", "k nearest neighbours (15, uniform weights, Euclidean).",
-                {"n_neighbors": 15}, _knn),
+                {"n_neighbors": 15}, _knn, label="k nearest neighbours",
+                constraints={"n_neighbors": [_COUNT],
+                             "weights": [Options(("uniform", "distance"))]}),
         Learner("random_forest", "Random forest of 100 trees.",
-                {"n_estimators": 100}, _random_forest),
+                {"n_estimators": 100}, _random_forest, label="random forest",
+                constraints=_FOREST),
         Learner("extra_trees", "Extremely randomised trees, 100 trees.",
-                {"n_estimators": 100}, _extra_trees),
+                {"n_estimators": 100}, _extra_trees, label="extra trees",
+                constraints=_FOREST),
         Learner("hist_gradient_boosting", "Histogram gradient boosting, 100 iterations, "
                 "no early stopping (its validation share would be windows, not people; and "
                 "the same fit whatever the number of rows).",
                 {"max_iter": 100, "early_stopping": False}, _hist_gradient_boosting,
-                refused=(("early_stopping", _WINDOW_SPLIT),)),
+                refused=(("early_stopping", _WINDOW_SPLIT),),
+                label="histogram gradient boosting",
+                constraints={"max_iter": [_COUNT], "learning_rate": [_POSITIVE],
+                             "max_depth": [_COUNT, None], "l2_regularization": [_NON_NEGATIVE],
+                             "class_weight": [Options(("balanced",)), None]}),
         Learner("mlp", "Multi-layer perceptron, one hidden layer of 32 units, adam (step "
                 "0.01), at most 500 epochs, stopping after 20 epochs in which the training "
                 "loss gains less than 1e-4 (no early stopping on a validation share: it "
                 "would be windows of the training people).",
                 {"hidden_layer_sizes": (32,), "alpha": 1e-3, "learning_rate_init": 0.01,
                  "max_iter": 500, "early_stopping": False, "n_iter_no_change": 20}, _mlp,
-                refused=(("early_stopping", _WINDOW_SPLIT),)),
+                refused=(("early_stopping", _WINDOW_SPLIT),), label="small neural network",
+                constraints={"hidden_layer_sizes": [ListOf(_COUNT, min_length=1,
+                                                           what="layer sizes (whole numbers "
+                                                                "of at least 1)")],
+                             "alpha": [_NON_NEGATIVE], "learning_rate_init": [_POSITIVE],
+                             "max_iter": [_COUNT], "n_iter_no_change": [_COUNT]}),
     )
 }
 
 
-def make_learner(name, params=None, *, random_state=0):
+def learner_choices() -> list[tuple[str, str]]:
+    """(name, label) of every learner, in table order (the training form's list)."""
+    return [(name, learner.title) for name, learner in LEARNERS.items()]
+
+
+def param_problems(name: str, params, *, prefix: str = "params") -> list[Problem]:
+    """Every problem of ``params`` for learner ``name``, as (field path, what to give):
+    not a dict, an unknown learner, a parameter the estimator does not have, the random
+    state, a refused parameter, or a value outside the learner's ``constraints`` (and, for
+    a parameter the table does not constrain, scikit-learn's own limits)."""
+    if name not in LEARNERS:
+        return [Problem("learner", f"give one of {', '.join(LEARNERS)}; got {name!r}")]
+    if params is None:
+        return []
+    if not isinstance(params, dict):
+        return [Problem(prefix, f"give the parameters of learner {name!r} as an object "
+                                f"(name -> value), not {type(params).__name__}")]
+    learner = LEARNERS[name]
+    allowed = sorted(learner.factory(0).get_params(deep=False))
+    problems = []
+    for key in params:
+        path = f"{prefix}.{key}"
+        if key == "random_state":
+            problems.append(Problem(path, f"leave it out: learner {name!r} takes its random "
+                                          "state from the run's seed"))
+        elif key in dict(learner.refused):
+            problems.append(Problem(path, f"leave it out: learner {name!r} does not take "
+                                          f"{key!r}: it {dict(learner.refused)[key]}"))
+        elif key not in allowed:
+            problems.append(Problem(path, f"learner {name!r} has no such parameter; its "
+                                          f"parameters are {', '.join(allowed)}"))
+    if problems:
+        return problems
+    problems = validate({k: v for k, v in params.items() if k in learner.constraints},
+                        learner.constraints, prefix=prefix)
+    rest = {k: v for k, v in params.items() if k not in learner.constraints}
+    if rest and not problems:
+        problems = _library_problems(learner, rest, prefix)
+    return problems
+
+
+def _library_problems(learner: Learner, params: dict, prefix: str) -> list[Problem]:
+    """scikit-learn's own check of parameters the table does not constrain."""
+    try:
+        from sklearn.utils._param_validation import InvalidParameterError
+    except ImportError:  # pragma: no cover - older scikit-learn: checked at fit
+        return []
+    estimator = learner.factory(0, **{**learner.defaults, **params})
+    check_params = getattr(estimator, "_validate_params", None)
+    if check_params is None or not hasattr(estimator, "_parameter_constraints"):
+        return []  # not a scikit-learn estimator with declared limits: checked at fit
+    try:
+        check_params()
+    except InvalidParameterError as exc:
+        text = str(exc)
+        key = next((k for k in params if f"{k!r}" in text), None)
+        return [Problem(f"{prefix}.{key}" if key else prefix, f"give a valid value: {text}")]
+    return []
+
+
+def make_learner(name: str, params: dict | None = None, *, random_state: int = 0):
     """An unfitted classifier: learner ``name`` with its defaults overridden by ``params``.
 
     Raises ValueError for an unknown name (listing the known ones), a parameter the
@@ -158,6 +279,8 @@ def make_learner(name, params=None, *, random_state=0):
         if key in params:
             raise ValueError(f"params: learner {name!r} does not take {key!r}: it {why}; "
                              "leave it out")
+    raise_for(validate({k: v for k, v in params.items() if k in learner.constraints},
+                       learner.constraints, prefix="params"))
     estimator = learner.factory(random_state, **{**learner.defaults, **params})
     if learner.grouped:
         from .ensembles import GroupCalibratedClassifier

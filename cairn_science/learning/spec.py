@@ -3,15 +3,32 @@ which models, which statistics. ``TrainingSpec.from_dict`` checks it against the
 it will run on and raises :class:`SpecError` naming every field that is wrong and what to do.
 """
 
+from __future__ import annotations
+
 import fnmatch
 from dataclasses import dataclass, field
+from typing import ClassVar
 
-from .learners import LEARNERS
-from .validation import SCHEMES
+from cairn_science.params import (
+    InstanceOf,
+    Integral,
+    Interval,
+    ListOf,
+    Options,
+    Problem,
+    defaults_of,
+    raise_for,
+    validate,
+)
+
+from .learners import LEARNERS, param_problems
+from .validation import Scheme
 
 LABEL_KINDS = ("level", "condition")
 NORMALISATIONS = ("none", "baseline", "mean")
 ENSEMBLES = ("bagging", "stacking")
+SAMPLE_BY = ("participant", "window")
+VOTING = ("soft", "hard")
 DEFAULT_QC = ("pass", "review")
 
 
@@ -23,9 +40,15 @@ class SpecError(ValueError):
         super().__init__("; ".join(f"{k}: {m}" for k, ms in errors.items() for m in ms))
 
 
+_LEARNER = Options(LEARNERS)  # the table's names at the time of the check
+_MEMBER_COUNT = Interval(Integral, 2, None, closed="left")
+
+
 @dataclass(frozen=True)
 class ModelSpec:
-    """One model of a run: a learner alone, a bagging of one learner, or a stacking."""
+    """One model of a run: a learner alone, a bagging of one learner, or a stacking. Its
+    defaults and ``_parameter_constraints`` are the only ones (a learner's own parameters
+    are checked against its entry in ``LEARNERS``)."""
 
     name: str
     learner: str | None = None
@@ -38,7 +61,27 @@ class ModelSpec:
     meta: str = "logistic"
     n_inner_splits: int = 5
 
-    def as_dict(self):
+    _parameter_constraints: ClassVar[dict] = {
+        "name": [InstanceOf(str, "a name"), None],
+        "learner": [_LEARNER],
+        "params": [InstanceOf(dict, "an object of the learner's parameters"), None],
+        "ensemble": [Options(ENSEMBLES), None],
+        "n_members": [_MEMBER_COUNT],
+        "sample_by": [Options(SAMPLE_BY)],
+        "voting": [Options(VOTING)],
+        "members": [ListOf(_LEARNER, min_length=2, what="learner names")],
+        "meta": [_LEARNER],
+        "n_inner_splits": [Interval(Integral, 2, None, closed="left")],
+    }
+    #: The fields each kind of model takes (the others are refused as unknown).
+    _FIELDS: ClassVar[dict] = {
+        None: ("name", "learner", "params", "ensemble"),
+        "bagging": ("name", "learner", "params", "ensemble", "n_members", "sample_by",
+                    "voting"),
+        "stacking": ("name", "ensemble", "members", "meta", "n_inner_splits"),
+    }
+
+    def as_dict(self) -> dict:
         out = {"name": self.name}
         if self.ensemble is None:
             out.update(learner=self.learner, params=dict(self.params))
@@ -51,7 +94,7 @@ class ModelSpec:
         return out
 
     @property
-    def base_learners(self):
+    def base_learners(self) -> tuple[str, ...]:
         """The single learners this model is made of (for paired comparisons)."""
         if self.ensemble == "stacking":
             return tuple(dict.fromkeys(self.members))
@@ -71,14 +114,15 @@ class TrainingSpec:
     seed: int
     release: dict
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {"feature_set": self.feature_set, "label": self.label, "include": self.include,
                 "features": self.features, "normalisation": self.normalisation,
                 "validation": self.validation, "models": [m.as_dict() for m in self.models],
                 "statistics": self.statistics, "seed": self.seed, "release": self.release}
 
     @classmethod
-    def from_dict(cls, data, *, columns=None, sites=None):
+    def from_dict(cls, data: dict, *, columns: list[str] | None = None,
+                  sites: list[str] | None = None) -> TrainingSpec:
         """Check ``data``; ``columns`` (feature column names of the table) and ``sites`` let
         the check name unknown channels, bands, features and sites."""
         errors = {}
@@ -155,10 +199,12 @@ class TrainingSpec:
                 "the resting baseline is one of the classes of a condition label; use 'mean' "
                 "or 'none'")
 
-        validation = {"scheme": "grouped_kfold", "n_splits": 5, "n_repeats": 1,
-                      "test_share": 0.25, **section("validation")}
-        if validation["scheme"] not in SCHEMES:
-            add("validation.scheme", f"choose one of {', '.join(SCHEMES)}")
+        given = section("validation")
+        scheme_problems = Scheme.problems_of(given)
+        for problem in scheme_problems:
+            add(problem.field, problem.message)
+        validation = (Scheme().as_dict() if scheme_problems
+                      else Scheme.from_dict(given).as_dict())
 
         models = []
         listed = data.get("models") or []
@@ -166,26 +212,27 @@ class TrainingSpec:
             add("models", "give a list of models")
             listed = []
         for i, item in enumerate(listed):
-            try:
+            problems = model_problems(item, prefix=f"models[{i}]")
+            for problem in problems:
+                add(problem.field, problem.message)
+            if not problems:
                 models.append(model_from_dict(item))
-            except ValueError as exc:
-                add(f"models[{i}]", str(exc))
         if data.get("comparison"):
-            try:
+            problems = comparison_problems(data["comparison"])
+            for problem in problems:
+                add(problem.field, problem.message)
+            if not problems:
                 models.extend(expand_comparison(data["comparison"]))
-            except ValueError as exc:
-                add("comparison", str(exc))
         names = [m.name for m in models]
         if not models:
             add("models", "list at least one model, or give a comparison grid")
         for name in sorted({n for n in names if names.count(n) > 1}):
             add("models", f"two models are named {name!r}; names must be unique")
 
-        statistics = {"permutations": 0, "bootstrap": 1000, "paired_test": False,
-                      "paired_splits": 5, "paired_repeats": 5, **section("statistics")}
-        for key in ("permutations", "bootstrap", "paired_splits", "paired_repeats"):
-            if not isinstance(statistics[key], int) or statistics[key] < 0:
-                add(f"statistics.{key}", "give a whole number ≥ 0")
+        statistics = {**STATISTICS_DEFAULTS, **section("statistics")}
+        for problem in validate(statistics, STATISTICS_CONSTRAINTS, prefix="statistics",
+                                refuse_unknown=False):
+            add(problem.field, problem.message)
         seed = data.get("seed", 0)
         if not isinstance(seed, int):
             add("seed", "give a whole number")
@@ -200,56 +247,97 @@ class TrainingSpec:
                    statistics=statistics, seed=seed, release=release)
 
 
-def _learner(name, where):
-    if name not in LEARNERS:
-        raise ValueError(f"{where}: unknown learner {name!r}; known: {', '.join(LEARNERS)}")
-    return name
+def _join(prefix, name):
+    return f"{prefix}.{name}" if prefix else name
 
 
-def model_from_dict(item):
-    item = dict(item)
+def model_problems(item, *, prefix: str = "") -> list[Problem]:
+    """Every problem of one model of a spec (an object), with paths under ``prefix``
+    (e.g. ``models[0].learner``, ``models[0].params.C``)."""
+    if not isinstance(item, dict):
+        return [Problem(prefix or "model", 'give an object, e.g. {"learner": "lda"}')]
+    ensemble = item.get("ensemble")
+    if ensemble not in ModelSpec._FIELDS:
+        return [Problem(_join(prefix, "ensemble"),
+                        f"give one of {', '.join(map(repr, ENSEMBLES))} or leave it out; "
+                        f"got {ensemble!r}")]
+    names = ModelSpec._FIELDS[ensemble]
+    constraints = {key: ModelSpec._parameter_constraints[key] for key in names}
+    problems = validate(item, constraints, prefix=prefix)
+    if ensemble != "stacking" and not problems:
+        problems = param_problems(item["learner"], item.get("params") or {},
+                                  prefix=_join(prefix, "params"))
+    return problems
+
+
+def model_from_dict(item: dict) -> ModelSpec:
+    """A ModelSpec from a spec's model object; missing fields take ModelSpec's defaults.
+    Raises :class:`~cairn_science.params.ParamError` (a ValueError) naming each problem."""
+    raise_for(model_problems(item))
+    defaults = defaults_of(ModelSpec)
     ensemble = item.get("ensemble")
     name = item.get("name")
     if ensemble is None:
-        learner = _learner(item.get("learner"), "learner")
-        return ModelSpec(name=name or learner, learner=learner, params=item.get("params", {}))
+        return ModelSpec(name=name or item["learner"], learner=item["learner"],
+                         params=item.get("params") or {})
     if ensemble == "bagging":
-        learner = _learner(item.get("learner"), "learner")
-        n = item.get("n_members", 10)
-        if not isinstance(n, int) or n < 2:
-            raise ValueError("n_members: give a whole number ≥ 2")
-        if item.get("sample_by", "participant") not in ("participant", "window"):
-            raise ValueError("sample_by: choose 'participant' or 'window'")
-        if item.get("voting", "soft") not in ("soft", "hard"):
-            raise ValueError("voting: choose 'soft' or 'hard'")
-        return ModelSpec(name=name or f"bagging-{learner}-{n}", learner=learner,
-                         params=item.get("params", {}), ensemble="bagging", n_members=n,
-                         sample_by=item.get("sample_by", "participant"),
-                         voting=item.get("voting", "soft"))
-    if ensemble == "stacking":
-        members = tuple(_learner(m, "members") for m in item.get("members") or [])
-        if len(members) < 2:
-            raise ValueError("members: a stacking needs at least 2 members")
-        meta = _learner(item.get("meta", "logistic"), "meta")
-        return ModelSpec(name=name or f"stacking-{'+'.join(members)}", ensemble="stacking",
-                         members=members, meta=meta,
-                         n_inner_splits=int(item.get("n_inner_splits", 5)))
-    raise ValueError(f"ensemble: choose one of {', '.join(ENSEMBLES)} (or leave it out)")
+        n = item.get("n_members", defaults["n_members"])
+        return ModelSpec(name=name or f"bagging-{item['learner']}-{n}",
+                         learner=item["learner"], params=item.get("params") or {},
+                         ensemble="bagging", n_members=n,
+                         sample_by=item.get("sample_by", defaults["sample_by"]),
+                         voting=item.get("voting", defaults["voting"]))
+    members = tuple(item["members"])
+    return ModelSpec(name=name or f"stacking-{'+'.join(members)}", ensemble="stacking",
+                     members=members, meta=item.get("meta", defaults["meta"]),
+                     n_inner_splits=item.get("n_inner_splits", defaults["n_inner_splits"]))
 
 
-def expand_comparison(grid):
+#: A comparison grid's fields and their defaults (only here).
+COMPARISON_DEFAULTS = {"strategies": list(ENSEMBLES), "learners": [], "mixed": [],
+                       "members": [5, 10], "sample_by": "participant"}
+COMPARISON_CONSTRAINTS = {
+    "strategies": [ListOf(Options(ENSEMBLES), what="of 'bagging', 'stacking'")],
+    "learners": [ListOf(_LEARNER, what="learner names")],
+    "mixed": [ListOf(ListOf(_LEARNER, min_length=1, what="learner names"),
+                     what="lists of learner names")],
+    "members": [ListOf(_MEMBER_COUNT, min_length=1,
+                       what="member counts (whole numbers of at least 2)")],
+    "sample_by": [Options(SAMPLE_BY)],
+}
+
+#: The statistics object's fields, their defaults and limits (only here).
+STATISTICS_DEFAULTS = {"permutations": 0, "bootstrap": 1000, "paired_test": False,
+                       "paired_splits": 5, "paired_repeats": 5}
+STATISTICS_CONSTRAINTS = {
+    "permutations": [Interval(Integral, 0, None, closed="left")],
+    "bootstrap": [Interval(Integral, 0, None, closed="left")],
+    "paired_test": [InstanceOf(bool, "true or false")],
+    # The paired comparison's folds are a grouped k-fold scheme: its limits.
+    "paired_splits": Scheme._parameter_constraints["n_splits"],
+    "paired_repeats": Scheme._parameter_constraints["n_repeats"],
+}
+
+
+def comparison_problems(grid, *, prefix: str = "comparison") -> list[Problem]:
+    """Every problem of a comparison grid (paths like ``comparison.members``)."""
+    if not isinstance(grid, dict):
+        return [Problem(prefix, 'give an object, e.g. {"learners": ["lda"], "members": [5]}')]
+    problems = validate(grid, COMPARISON_CONSTRAINTS, prefix=prefix)
+    if not problems and not grid.get("learners") and not grid.get("mixed"):
+        problems.append(Problem(prefix, "give learners and/or mixed compositions"))
+    return problems
+
+
+def expand_comparison(grid: dict) -> list[ModelSpec]:
     """A grid (strategy × member learner or mixed composition × member count) plus every
-    member learner alone as a baseline, as a list of ModelSpec."""
-    strategies = grid.get("strategies", ["bagging", "stacking"])
-    learners = [_learner(n, "learners") for n in grid.get("learners", [])]
-    mixed = [tuple(_learner(n, "mixed") for n in combo) for combo in grid.get("mixed", [])]
-    counts = grid.get("members", [5, 10])
-    sample_by = grid.get("sample_by", "participant")
-    unknown = sorted(set(strategies) - set(ENSEMBLES))
-    if unknown:
-        raise ValueError(f"strategies: {', '.join(unknown)} unknown; use bagging, stacking")
-    if not learners and not mixed:
-        raise ValueError("give learners and/or mixed compositions")
+    member learner alone as a baseline, as a list of ModelSpec. Raises
+    :class:`~cairn_science.params.ParamError` naming each problem of the grid."""
+    raise_for(comparison_problems(grid))
+    grid = {**COMPARISON_DEFAULTS, **grid}
+    strategies, counts, sample_by = grid["strategies"], grid["members"], grid["sample_by"]
+    learners = list(grid["learners"])
+    mixed = [tuple(combo) for combo in grid["mixed"]]
     models = []
     for learner in learners:
         for n in counts:
@@ -272,7 +360,7 @@ def expand_comparison(grid):
     return models
 
 
-def select_columns(columns, features):
+def select_columns(columns: list[str], features: dict) -> list[str]:
     """Feature columns chosen by include/exclude patterns, bands and channels, in table order."""
     out = []
     for column in columns:

@@ -30,16 +30,21 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
-from sklearn.model_selection import GroupKFold, LeaveOneGroupOut, StratifiedGroupKFold
 
-SCHEMES = (
-    "leave_one_participant_out",
-    "grouped_kfold",
-    "leave_one_site_out",
-    "within_participant_time",
-)
+from cairn_science.params import Integral, Interval, Options, Real, raise_for, validate
+
+#: Every scheme with the few words a form shows for it (its label).
+SCHEME_LABELS = {
+    "leave_one_participant_out": "leave one participant out",
+    "grouped_kfold": "k folds grouped by participant",
+    "leave_one_site_out": "leave one site out",
+    "within_participant_time": "within participant, later windows held out (known people "
+                               "only)",
+}
+SCHEMES = tuple(SCHEME_LABELS)
 
 _WITHIN_WARNING = (
     "Within-participant validation tests on later data of the same people the model was "
@@ -54,7 +59,7 @@ WITHIN_RULE = (
 )
 
 
-def warning_of(scheme_name) -> str:
+def warning_of(scheme_name: str) -> str:
     """The sentence a report must carry for a scheme that does not test new people, else
     "" (also for a name that is not a scheme)."""
     return f"{_WITHIN_WARNING} {WITHIN_RULE}" if scheme_name == "within_participant_time" \
@@ -78,30 +83,51 @@ class Fold:
     held_out: tuple
 
 
+#: How a scheme's fields are called in a training spec's "validation" object.
+_SPEC_KEYS = {"name": "scheme", "n_splits": "n_splits", "n_repeats": "n_repeats",
+              "test_share": "test_share"}
+
+
 @dataclass(frozen=True)
 class Scheme:
-    """A validation scheme by name, with its few parameters."""
+    """A validation scheme by name, with its few parameters; these defaults and limits are
+    the only ones (a training spec's "validation" object is :meth:`as_dict`)."""
 
-    name: str
+    name: str = "grouped_kfold"
     n_splits: int = 5
     n_repeats: int = 1
     test_share: float = 0.25
 
+    _parameter_constraints: ClassVar[dict] = {
+        "name": [Options(SCHEMES)],
+        "n_splits": [Interval(Integral, 2, None, closed="left")],
+        "n_repeats": [Interval(Integral, 1, None, closed="left")],
+        "test_share": [Interval(Real, 0, 1, closed="neither")],
+    }
+
     def __post_init__(self):
-        if self.name not in SCHEMES:
-            raise SchemeError(
-                f"scheme name {self.name!r} is unknown; use one of {', '.join(SCHEMES)}")
-        if isinstance(self.n_splits, bool) or not isinstance(self.n_splits, int | np.integer) \
-                or self.n_splits < 2:
-            raise SchemeError(f"n_splits must be an integer of at least 2, got {self.n_splits!r}")
-        if isinstance(self.n_repeats, bool) or not isinstance(self.n_repeats, int | np.integer) \
-                or self.n_repeats < 1:
-            raise SchemeError(
-                f"n_repeats must be an integer of at least 1, got {self.n_repeats!r}")
-        share = self.test_share
-        if not isinstance(share, int | float | np.floating) or not 0.0 < float(share) < 1.0:
-            raise SchemeError(
-                f"test_share must be a number strictly between 0 and 1, got {share!r}")
+        raise_for(validate(self), SchemeError)
+        object.__setattr__(self, "n_splits", int(self.n_splits))
+        object.__setattr__(self, "n_repeats", int(self.n_repeats))
+        object.__setattr__(self, "test_share", float(self.test_share))
+
+    def as_dict(self) -> dict:
+        """The spec's "validation" object: scheme, n_splits, n_repeats, test_share."""
+        return {key: getattr(self, name) for name, key in _SPEC_KEYS.items()}
+
+    @classmethod
+    def problems_of(cls, data: dict, *, prefix: str = "validation") -> list:
+        """Every problem of a spec's "validation" object (paths like validation.n_splits)."""
+        constraints = {key: cls._parameter_constraints[name] for name, key in _SPEC_KEYS.items()}
+        return validate(data, constraints, prefix=prefix)
+
+    @classmethod
+    def from_dict(cls, data: dict) -> Scheme:
+        """A scheme from a spec's "validation" object; missing keys take the defaults.
+        Raises :class:`SchemeError` naming every bad key and what to give."""
+        raise_for(cls.problems_of(data), SchemeError)
+        names = {key: name for name, key in _SPEC_KEYS.items()}
+        return cls(**{names[key]: value for key, value in data.items()})
 
     @property
     def warning(self) -> str:
@@ -148,6 +174,8 @@ def _stratifiable(y, participants, n_splits):
 
 
 def _grouped_splitter(y, participants, n_splits, seed):
+    from sklearn.model_selection import GroupKFold, StratifiedGroupKFold
+
     stratified, _ = _stratifiable(y, participants, n_splits)
     if stratified:
         return StratifiedGroupKFold(n_splits=n_splits, shuffle=True, random_state=seed), True
@@ -191,7 +219,7 @@ def _check_training_classes(folds, y, groups, scheme_name):
 
 
 def describe_outer(scheme: Scheme, *, y, participants, sites=None, order=None,
-                   seed=0) -> dict:
+                   seed: int = 0) -> dict:
     """How :func:`outer_folds` splits these data, without splitting them.
 
     Returns ``{"scheme", "grouped", "group_by", "n_groups", "n_folds", "stratified",
@@ -241,6 +269,8 @@ def _fold(index, repeat, train, test, held_out):
 
 
 def _leave_one_group_out(y, groups, what, scheme_name):
+    from sklearn.model_selection import LeaveOneGroupOut
+
     unique = np.unique(groups)
     if unique.size < 2:
         raise SchemeError(
@@ -359,7 +389,7 @@ def _within_participant_time(scheme, y, participants, order, recordings, session
 
 
 def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None, recordings=None,
-                sessions=None, window_s=None, seed=0) -> list[Fold]:
+                sessions=None, window_s: float | None = None, seed: int = 0) -> list[Fold]:
     """The outer folds of ``scheme`` on these rows.
 
     ``participants`` are per-row ids, unique across sites (the caller writes
@@ -390,7 +420,8 @@ def outer_folds(scheme: Scheme, *, y, participants, sites=None, order=None, reco
 # --------------------------------------------------------------------------- inner splits
 
 
-def inner_splits(y, participants, *, n_splits=5, seed=0) -> list[tuple[np.ndarray, np.ndarray]]:
+def inner_splits(y, participants, *, n_splits: int = 5,
+                 seed: int = 0) -> list[tuple[np.ndarray, np.ndarray]]:
     """Participant-grouped inner folds for tuning or stacking on a training part.
 
     ``StratifiedGroupKFold`` when every class is present in at least ``n_splits``
@@ -399,8 +430,8 @@ def inner_splits(y, participants, *, n_splits=5, seed=0) -> list[tuple[np.ndarra
     """
     y = _labels_array(y)
     participants = _ids_array(participants, y.size, "participants")
-    if isinstance(n_splits, bool) or not isinstance(n_splits, int | np.integer) or n_splits < 2:
-        raise SchemeError(f"n_splits must be an integer of at least 2, got {n_splits!r}")
+    raise_for(validate({"n_splits": n_splits},
+                       {"n_splits": Scheme._parameter_constraints["n_splits"]}), SchemeError)
     n_participants = int(np.unique(participants).size)
     if n_participants < 2:
         raise SchemeError(
@@ -413,7 +444,7 @@ def inner_splits(y, participants, *, n_splits=5, seed=0) -> list[tuple[np.ndarra
             for train, test in splitter.split(dummy, y, groups=participants)]
 
 
-def assert_disjoint(folds, participants, *, scheme: Scheme | None = None) -> None:
+def assert_disjoint(folds: list[Fold], participants, *, scheme: Scheme | None = None) -> None:
     """Raise AssertionError naming a participant found in both parts of a fold.
 
     Every fold given is checked; pass ``scheme`` to skip the check for a scheme that is not

@@ -6,11 +6,13 @@ import mne
 import numpy as np
 from numpy.polynomial import legendre
 
+from cairn_science.signal.prepare import CLASSIC_NAMES
+
 # mne 1.13 calls its 10-20 template "colin27_1020"; earlier releases "standard_1020".
 TEMPLATE_MONTAGES = ("colin27_1020", "standard_1020")
 
-# Classic 10-20 names and their modern equivalents (same electrode sites).
-CLASSIC_NAMES = {"T3": "T7", "T4": "T8", "T5": "P7", "T6": "P8"}
+# Classic 10-20 names (CLASSIC_NAMES, kept with the signal preparation, which matches channel
+# names without loading mne) and their modern equivalents (same electrode sites).
 MODERN_NAMES = {modern: classic for classic, modern in CLASSIC_NAMES.items()}
 
 SPLINE_STIFFNESS = 4

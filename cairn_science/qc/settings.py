@@ -1,9 +1,13 @@
 """Quality-check thresholds of a study protocol, as one frozen, hashable parameter object."""
 
+from __future__ import annotations
+
 import dataclasses
 from dataclasses import dataclass
+from typing import ClassVar
 
 from ..canonical_json import canonical_sha256
+from ..params import InstanceOf, Integral, Interval, Real, raise_for, validate
 
 _SHARES = (
     "bad_channel_share_review",
@@ -20,6 +24,34 @@ _SHARES = (
 )
 _COUNTS = ("n_neighbours", "predict_n_subsets", "predict_min_subset", "jump_min_count")
 _FLAGS = ("check_predictability",)
+_POSITIVE = ("psd_window_s", "correlation_window_s", "predict_window_s", "segment_window_s")
+
+
+def _constraint(name):
+    if name in _FLAGS:
+        return [InstanceOf(bool, "true or false")]
+    if name in _COUNTS:
+        return [Interval(Integral, 1, None, closed="left")]
+    if name in _SHARES:
+        return [Interval(Real, 0, 1, closed="both")]
+    if name in _POSITIVE:
+        return [Interval(Real, 0, None, closed="neither")]
+    return [Interval(Real, 0, None, closed="left")]
+
+
+def _ordered(values):
+    """Review thresholds not above fail thresholds; band edges in order."""
+    for review, fail in (("bad_channel_share_review", "bad_channel_share_fail"),
+                         ("rejected_time_share_review", "rejected_time_share_fail")):
+        if values[review] > values[fail]:
+            yield (review, f"give a review threshold not above {fail} ({values[fail]:g}); "
+                           f"got {values[review]:g}")
+    for low, high in (("mains_band_hz", "mains_flank_inner_hz"),
+                      ("mains_flank_inner_hz", "mains_flank_outer_hz"),
+                      ("highpass_hz", "lowpass_hz"),
+                      ("muscle_l_freq_hz", "muscle_h_freq_hz")):
+        if values[high] <= values[low]:
+            yield (high, f"give a value above {low} ({values[low]:g}); got {values[high]:g}")
 
 
 @dataclass(frozen=True)
@@ -141,62 +173,35 @@ class QCSettings:
     blink_min_amplitude_uv: float = 40.0
     blink_z_min: float = 5.0
 
+    # Limits of each field (shares 0-1, counts whole and >= 1, the rest >= 0, window lengths
+    # > 0) and the order of thresholds and band edges; the study protocol form and a quality
+    # round's thresholds are checked against these.
+    _parameter_constraints: ClassVar[dict]
+    _parameter_checks: ClassVar[tuple] = (_ordered,)
+
     def __post_init__(self):
+        raise_for(validate(self))
         for item in dataclasses.fields(self):
-            value = getattr(self, item.name)
-            if item.name in _FLAGS:
-                if not isinstance(value, bool):
-                    raise ValueError(f"QC setting {item.name} must be true or false, got {value!r}")
-                continue
-            if isinstance(value, bool) or not isinstance(value, int | float):
-                raise ValueError(f"QC setting {item.name} must be a number, got {value!r}")
             if item.name in _COUNTS:
-                if int(value) != value or value < 1:
-                    raise ValueError(
-                        f"QC setting {item.name} must be a whole number of at least 1, "
-                        f"got {value!r}"
-                    )
-                object.__setattr__(self, item.name, int(value))
-                continue
-            value = float(value)
-            if value != value or value < 0:
-                raise ValueError(f"QC setting {item.name} must be 0 or more, got {value!r}")
-            if item.name in _SHARES and value > 1:
-                raise ValueError(f"QC setting {item.name} is a share from 0 to 1, got {value!r}")
-            object.__setattr__(self, item.name, value)
-        for review, fail in (
-            ("bad_channel_share_review", "bad_channel_share_fail"),
-            ("rejected_time_share_review", "rejected_time_share_fail"),
-        ):
-            if getattr(self, review) > getattr(self, fail):
-                raise ValueError(
-                    f"QC setting {review} ({getattr(self, review)}) must not exceed "
-                    f"{fail} ({getattr(self, fail)})"
-                )
-        if self.mains_flank_inner_hz <= self.mains_band_hz:
-            raise ValueError("QC setting mains_flank_inner_hz must exceed mains_band_hz")
-        if self.mains_flank_outer_hz <= self.mains_flank_inner_hz:
-            raise ValueError("QC setting mains_flank_outer_hz must exceed mains_flank_inner_hz")
-        if self.lowpass_hz <= self.highpass_hz:
-            raise ValueError("QC setting lowpass_hz must exceed highpass_hz")
-        if self.muscle_h_freq_hz <= self.muscle_l_freq_hz:
-            raise ValueError("QC setting muscle_h_freq_hz must exceed muscle_l_freq_hz")
-        for name in ("psd_window_s", "correlation_window_s", "predict_window_s",
-                     "segment_window_s"):
-            if getattr(self, name) <= 0:
-                raise ValueError(f"QC setting {name} must be more than 0 s")
+                object.__setattr__(self, item.name, int(getattr(self, item.name)))
+            elif item.name not in _FLAGS:
+                object.__setattr__(self, item.name, float(getattr(self, item.name)))
 
     @classmethod
-    def from_stored(cls, data):
+    def from_stored(cls, data: dict) -> QCSettings:
         """Settings from a stored dict (a round's settings); keys that are no setting of the
         checks are left out."""
         known = {item.name for item in dataclasses.fields(cls)}
         return cls(**{key: value for key, value in data.items() if key in known})
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         """Plain dict of every setting, in field order."""
-        return dataclasses.asdict(self)
+        return {item.name: getattr(self, item.name) for item in dataclasses.fields(self)}
 
-    def digest(self):
+    def digest(self) -> str:
         """sha256 of the settings as canonical JSON (sorted keys, no spaces)."""
         return canonical_sha256(self.as_dict(), ascii=True, allow_nan=True)
+
+
+QCSettings._parameter_constraints = {
+    item.name: _constraint(item.name) for item in dataclasses.fields(QCSettings)}

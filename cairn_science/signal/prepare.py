@@ -1,18 +1,29 @@
 """EEG signal preparation for the workload features: channel harmonisation, notch, band-pass,
-resampling, bad-channel repair and re-reference, each step recorded with its parameters."""
+resampling, bad-channel repair and re-reference, each step recorded with its parameters.
+
+:class:`PrepSettings` holds every preparation parameter with its one default and its limits
+(``_parameter_constraints``, checked by :func:`cairn_science.params.validate`). This module
+loads mne and scipy only when a recording is prepared, so that a web process can build and
+check settings without them.
+"""
+
+from __future__ import annotations
 
 import dataclasses
 import functools
 import warnings
 from dataclasses import dataclass
 from fractions import Fraction
+from typing import ClassVar
 
-import mne
 import numpy as np
-from scipy import signal
 
-from cairn_science.qc.positions import CLASSIC_NAMES, TEMPLATE_MONTAGES
+from cairn_science.params import InstanceOf, Interval, ListOf, Options, Real, raise_for, validate
 
+from .windows import OVERLAP, WINDOW_S
+
+#: Classic 10-20 names and their modern equivalents, which name the same electrode sites.
+CLASSIC_NAMES = {"T3": "T7", "T4": "T8", "T5": "P7", "T6": "P8"}
 BAD_CHANNEL_MODES = ("interpolate", "drop")
 REFERENCES = ("average", "as_recorded")
 
@@ -27,24 +38,54 @@ MAX_POLYPHASE_TERM = 10_000
 MIN_INTERPOLATION_SOURCES = 3
 
 _CLASSIC_TO_MODERN = {classic.lower(): modern.lower() for classic, modern in CLASSIC_NAMES.items()}
-_FLOATS = ("l_freq_hz", "h_freq_hz", "window_s", "overlap")
 
 
-def site_key(ch_name):
+def site_key(ch_name: str) -> str:
     """Case-insensitive key of an electrode name; classic 10-20 names (T3, T4, T5, T6) map to
     their modern equivalents (T7, T8, P7, P8), which name the same sites."""
     key = str(ch_name).strip().lower()
     return _CLASSIC_TO_MODERN.get(key, key)
 
 
+def _band_edges(values):
+    if values["l_freq_hz"] >= values["h_freq_hz"]:
+        yield ("l_freq_hz", f"give a low edge below h_freq_hz ({_show_hz(values['h_freq_hz'])}); "
+                            f"got {_show_hz(values['l_freq_hz'])}: swap or correct the band "
+                            "edges")
+
+
+def _show_hz(value):
+    return f"{float(value):g} Hz"
+
+
+def _channel_names(values):
+    channels = values.get("channels")
+    if channels is None:
+        return
+    seen = {}
+    for name in channels:
+        if not name.strip():
+            yield ("channels", f"{name!r} is no channel name; give the names of the channels "
+                               "to keep")
+            continue
+        key = site_key(name)
+        if key in seen:
+            yield ("channels", f"{seen[key]} and {name} name the same electrode site; keep "
+                               "one of them")
+        seen[key] = name
+
+
 @dataclass(frozen=True)
 class PrepSettings:
-    """How recordings are prepared for analysis; defaults follow common practice.
+    """How recordings are prepared for analysis; defaults follow common practice. These
+    defaults and ``_parameter_constraints`` are the only ones: the study protocol, the
+    feature-set form and the worker take theirs from here.
 
     ``channels`` None keeps the channels present; otherwise the requested set, in this order
     (names matched ignoring case and the classic/modern 10-20 aliases). ``bad_channels`` is
     "interpolate" (spherical spline from the 10-20 template, MNE) or "drop"; ``reference``
-    "average" or "as_recorded". ``overlap`` is the share of a window two neighbours share.
+    "average" or "as_recorded". ``overlap`` is the share of a window two neighbours share,
+    at most 0.9 (``windows.OVERLAP``).
     """
 
     l_freq_hz: float = 0.5
@@ -57,60 +98,50 @@ class PrepSettings:
     window_s: float = 4.0
     overlap: float = 0.5
 
-    def __post_init__(self):
-        for name in _FLOATS:
-            object.__setattr__(self, name, _number(name, getattr(self, name)))
-        if self.analysis_sfreq_hz is not None:
-            object.__setattr__(
-                self, "analysis_sfreq_hz", _number("analysis_sfreq_hz", self.analysis_sfreq_hz)
-            )
-            if self.analysis_sfreq_hz <= 0:
-                raise ValueError(
-                    f"analysis_sfreq_hz must be positive, got {self.analysis_sfreq_hz}; "
-                    "give a rate in Hz or null to keep the recording's rate"
-                )
-        if not isinstance(self.notch, bool | np.bool_):
-            raise ValueError(f"notch must be true or false, got {self.notch!r}")
-        object.__setattr__(self, "notch", bool(self.notch))
-        if self.l_freq_hz <= 0:
-            raise ValueError(
-                f"l_freq_hz must be above 0 Hz, got {self.l_freq_hz}; the band-pass needs a "
-                "high-pass edge (0.5 Hz is common practice)"
-            )
-        if self.l_freq_hz >= self.h_freq_hz:
-            raise ValueError(
-                f"l_freq_hz ({self.l_freq_hz} Hz) must be below h_freq_hz "
-                f"({self.h_freq_hz} Hz); swap or correct the band edges"
-            )
-        if self.window_s <= 0:
-            raise ValueError(f"window_s must be positive, got {self.window_s}")
-        if not 0.0 <= self.overlap < 1.0:
-            raise ValueError(
-                f"overlap must be at least 0 and below 1 (a share of the window), "
-                f"got {self.overlap}"
-            )
-        if self.bad_channels not in BAD_CHANNEL_MODES:
-            raise ValueError(
-                f"bad_channels must be one of {', '.join(BAD_CHANNEL_MODES)}, "
-                f"got {self.bad_channels!r}"
-            )
-        if self.reference not in REFERENCES:
-            raise ValueError(
-                f"reference must be one of {', '.join(REFERENCES)}, got {self.reference!r}"
-            )
-        if self.channels is not None:
-            object.__setattr__(self, "channels", _channel_tuple(self.channels))
+    _parameter_constraints: ClassVar[dict] = {
+        # The band-pass needs a high-pass edge (0.5 Hz is common practice).
+        "l_freq_hz": [Interval(Real, 0, None, closed="neither")],
+        "h_freq_hz": [Interval(Real, 0, None, closed="neither")],
+        "notch": [InstanceOf(bool, "true or false")],
+        "analysis_sfreq_hz": [Interval(Real, 0, None, closed="neither"), None],
+        "channels": [ListOf(InstanceOf(str, "channel name"), min_length=1,
+                            what="channel names"), None],
+        "bad_channels": [Options(BAD_CHANNEL_MODES)],
+        "reference": [Options(REFERENCES)],
+        "window_s": [WINDOW_S],
+        "overlap": [OVERLAP],
+    }
+    _parameter_checks: ClassVar[tuple] = (_band_edges, _channel_names)
 
-    def as_dict(self):
+    def __post_init__(self):
+        values = {name: getattr(self, name) for name in self._parameter_constraints}
+        if isinstance(values["notch"], np.bool_):
+            values["notch"] = bool(values["notch"])
+        for name in _FLOATS:
+            if isinstance(values[name], np.integer | np.floating):
+                values[name] = values[name].item()
+        if isinstance(values["channels"], list):
+            values["channels"] = tuple(values["channels"])
+        raise_for(validate(values, type(self), refuse_unknown=False, defaults=False))
+        for name in _FLOATS:
+            values[name] = float(values[name])
+        if values["analysis_sfreq_hz"] is not None:
+            values["analysis_sfreq_hz"] = float(values["analysis_sfreq_hz"])
+        for name, value in values.items():
+            object.__setattr__(self, name, value)
+
+    def as_dict(self) -> dict:
         """JSON-ready dict of every setting (channels as a list)."""
-        data = dataclasses.asdict(self)
+        data = {item.name: getattr(self, item.name) for item in dataclasses.fields(self)}
         if data["channels"] is not None:
             data["channels"] = list(data["channels"])
         return data
 
     @classmethod
-    def from_dict(cls, data):
-        """Settings from a dict such as :meth:`as_dict` gives; missing keys take defaults."""
+    def from_dict(cls, data: dict) -> PrepSettings:
+        """Settings from a dict such as :meth:`as_dict` gives; missing keys take defaults.
+        Raises :class:`~cairn_science.params.ParamError` (a ValueError) naming every bad
+        or unknown key and what to give."""
         if not isinstance(data, dict):
             raise ValueError(
                 f"prep settings must be a mapping of setting names to values, got "
@@ -126,34 +157,7 @@ class PrepSettings:
         return cls(**data)
 
 
-def _number(name, value):
-    if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
-        raise ValueError(f"{name} must be a number, got {value!r}")
-    value = float(value)
-    if not np.isfinite(value):
-        raise ValueError(f"{name} must be a finite number, got {value}")
-    return value
-
-
-def _channel_tuple(channels):
-    if isinstance(channels, str) or not isinstance(channels, list | tuple):
-        raise ValueError(
-            f"channels must be a list of channel names or null, got {channels!r}"
-        )
-    if not channels:
-        raise ValueError("channels is empty; list the channels to keep or use null for all")
-    seen = {}
-    for name in channels:
-        if not isinstance(name, str) or not name.strip():
-            raise ValueError(f"channels holds {name!r}, which is not a channel name")
-        key = site_key(name)
-        if key in seen:
-            raise ValueError(
-                f"channels lists {seen[key]} and {name}, which name the same electrode site; "
-                "keep one of them"
-            )
-        seen[key] = name
-    return tuple(channels)
+_FLOATS = ("l_freq_hz", "h_freq_hz", "window_s", "overlap")
 
 
 class TooShortError(ValueError):
@@ -176,9 +180,11 @@ class Prepared:
     steps: list[dict]
 
 
-def bandpass_design(*, sfreq_hz, l_freq_hz, h_freq_hz):
+def bandpass_design(*, sfreq_hz: float, l_freq_hz: float, h_freq_hz: float) -> dict:
     """MNE's default zero-phase FIR band-pass at this rate: its transition bands (as
     documented for ``mne.filter.filter_data``) and filter length in samples."""
+    import mne
+
     nyquist_hz = sfreq_hz / 2.0
     if h_freq_hz >= nyquist_hz:
         raise ValueError(
@@ -206,7 +212,8 @@ def _notch_edges(freqs_hz):
     return widths, lows, highs
 
 
-def notch_plan(*, sfreq_hz, power_line_hz, stop_edge_hz, analysis_sfreq_hz):
+def notch_plan(*, sfreq_hz: float, power_line_hz: float, stop_edge_hz: float,
+               analysis_sfreq_hz: float) -> tuple[list[float], str | None]:
     """Mains frequency and harmonics to notch: below the band-pass stopband edge (the low-pass
     removes the rest) and below the Nyquist frequency of the input and the analysis rate.
     Returns (freqs_hz, reason why none when empty)."""
@@ -292,6 +299,10 @@ def _rate_ratio(from_hz, to_hz):
 
 
 def _template_montage():
+    import mne
+
+    from cairn_science.qc.positions import TEMPLATE_MONTAGES
+
     available = mne.channels.get_builtin_montages()
     name = next(name for name in TEMPLATE_MONTAGES if name in available)
     with warnings.catch_warnings():
@@ -300,10 +311,12 @@ def _template_montage():
 
 
 @functools.cache
-def template_origin_m():
+def template_origin_m() -> tuple[float, ...]:
     """Centre (head frame, m) of the sphere MNE fits to every electrode of the 10-20
     template. Interpolation uses it whatever channels a recording has, as a sphere fitted
     to a sparse montage's few points can be far off."""
+    import mne
+
     _, montage = _template_montage()
     info = mne.create_info(montage.ch_names, 100.0, ch_types="eeg")
     info.set_montage(montage, verbose=False)
@@ -316,6 +329,8 @@ def _interpolate(data, names, bad_rows):
 
     Returns (data, interpolated rows, {dropped row: reason}, montage name).
     """
+    import mne
+
     montage_name, montage = _template_montage()
     spelled = {site_key(name): name for name in montage.ch_names}
     positioned = {}
@@ -345,7 +360,8 @@ def _interpolate(data, names, bad_rows):
     return out, candidates, dropped, montage_name
 
 
-def prepare(data_v, *, sfreq_hz, ch_names, power_line_hz, bad_channels, settings):
+def prepare(data_v, *, sfreq_hz: float, ch_names, power_line_hz: float | None,
+            bad_channels, settings: PrepSettings) -> Prepared:
     """Prepare one recording for analysis.
 
     ``data_v`` is (n_channels, n_times) in volts at ``sfreq_hz`` with ``ch_names`` as
@@ -354,6 +370,9 @@ def prepare(data_v, *, sfreq_hz, ch_names, power_line_hz, bad_channels, settings
     :class:`PrepSettings`. Steps: pick channels, notch, band-pass, resample, bad channels,
     re-reference; every step, done or skipped, is recorded with its parameters.
     """
+    import mne
+    from scipy import signal
+
     data = np.asarray(data_v, dtype=float)
     ch_names = [str(name) for name in ch_names]
     sfreq_hz = float(sfreq_hz)

@@ -4,6 +4,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from cairn_science.params import Interval, Real, raise_for, validate
+
+#: The window length's limits (s): a quarter second holds a few cycles of the fastest band;
+#: ten minutes is longer than any block of a session. The study protocol's limits, which
+#: every caller now uses (``PrepSettings.window_s``).
+WINDOW_S = Interval(Real, 0.25, 600, closed="both")
+#: The share of a window two neighbours share: from 0 to 0.9. At 0.9 the step is a tenth
+#: of a window; beyond it neighbouring windows are near-copies that multiply the rows of one
+#: stretch of signal without adding information. The rule the study protocol form already
+#: showed; the science formerly allowed anything below 1 (``PrepSettings.overlap``).
+OVERLAP = Interval(Real, 0, 0.9, closed="both")
+
 # Slack for times that land on a sample boundary up to float rounding (in samples).
 _EDGE_SLACK = 1e-6
 
@@ -66,10 +78,14 @@ def _interval(item, *, what, index):
     return onset, duration
 
 
-def plan_windows(n_times, *, sfreq_hz, window_s=4.0, overlap=0.5, bad_segments=(), blocks=()):
+def plan_windows(n_times: int, *, sfreq_hz: float, window_s: float | None = None,
+                 overlap: float | None = None, bad_segments=(), blocks=()) -> WindowPlan:
     """Windows of ``window_s`` on a grid from sample 0 with a step of
     round(window_samples * (1 - overlap)) samples.
 
+    ``window_s`` and ``overlap`` are those of a
+    :class:`~cairn_science.signal.prepare.PrepSettings` (limits ``WINDOW_S``, ``OVERLAP``;
+    None takes its default).
     A window touching any of ``bad_segments`` ((onset_s, duration_s) pairs) is left out.
     With ``blocks`` (dicts with onset_s and duration_s; other keys ignored) a window wholly
     inside one block takes its index; one overlapping two or more blocks, or lying partly or
@@ -82,10 +98,13 @@ def plan_windows(n_times, *, sfreq_hz, window_s=4.0, overlap=0.5, bad_segments=(
         raise ValueError(f"n_times must be 0 or more, got {n_times}")
     if not sfreq_hz > 0:
         raise ValueError(f"sfreq_hz must be positive, got {sfreq_hz}")
-    if not window_s > 0:
-        raise ValueError(f"window_s must be positive, got {window_s}")
-    if not 0.0 <= overlap < 1.0:
-        raise ValueError(f"overlap must be at least 0 and below 1, got {overlap}")
+    if window_s is None or overlap is None:
+        from .prepare import PrepSettings
+
+        window_s = PrepSettings.window_s if window_s is None else window_s
+        overlap = PrepSettings.overlap if overlap is None else overlap
+    raise_for(validate({"window_s": window_s, "overlap": overlap},
+                       {"window_s": [WINDOW_S], "overlap": [OVERLAP]}))
     window = int(round(window_s * sfreq_hz))
     if window < 1:
         raise ValueError(f"window_s {window_s} s is shorter than one sample at {sfreq_hz} Hz; "
@@ -135,7 +154,7 @@ def plan_windows(n_times, *, sfreq_hz, window_s=4.0, overlap=0.5, bad_segments=(
     )
 
 
-def cut_windows(data, plan):
+def cut_windows(data, plan: WindowPlan) -> np.ndarray:
     """The plan's windows of ``data`` (n_channels, n_times) as a new array of shape
     (n_windows, n_channels, window_samples)."""
     data = np.asarray(data)

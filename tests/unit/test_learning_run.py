@@ -293,7 +293,8 @@ def test_specs_name_what_is_wrong():
                                 "features": {"include": ["gamma.*"]}},
                                columns=["alpha.relative_power.Pz"])
     errors = caught.value.errors
-    assert {"feature_set", "label.kind", "validation.scheme", "models[0]", "features"} <= set(
+    assert {"feature_set", "label.kind", "validation.scheme", "models[0].learner",
+            "features"} <= set(
         errors)
     assert any("gamma.*" in m for m in errors["features"])
 

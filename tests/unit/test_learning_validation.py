@@ -336,11 +336,14 @@ def test_inner_splits_equal_sklearn_and_shrink_to_the_participants():
 
 def test_bad_scheme_parameters_name_the_field():
     """Common practice, no source: errors name the field and the allowed values."""
-    with pytest.raises(SchemeError, match="scheme name 'kfold' is unknown"):
+    with pytest.raises(SchemeError, match="name: give one of .*'grouped_kfold'.*got 'kfold'"):
         Scheme("kfold")
-    with pytest.raises(SchemeError, match="n_splits must be an integer of at least 2"):
+    with pytest.raises(SchemeError, match="n_splits: give a whole number of at least 2; got 1"):
         Scheme("grouped_kfold", n_splits=1)
-    with pytest.raises(SchemeError, match="test_share must be a number strictly between"):
+    with pytest.raises(SchemeError, match="n_splits: give a whole number of at least 2; "
+                                          "got 'five'"):
+        Scheme("grouped_kfold", n_splits="five")
+    with pytest.raises(SchemeError, match="test_share: give a number above 0 and below 1"):
         Scheme("within_participant_time", test_share=1.0)
     with pytest.raises(SchemeError, match="participants must have one value per row"):
         outer_folds(Scheme("grouped_kfold"), y=["A", "B"], participants=["p1"])

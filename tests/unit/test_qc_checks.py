@@ -614,12 +614,14 @@ def test_settings_digest_stable_and_sensitive():
 @pytest.mark.parametrize(
     ("changes", "words"),
     [
-        ({"bad_channel_share_review": 0.5}, "must not exceed bad_channel_share_fail"),
-        ({"correlation_min": -1}, "correlation_min must be 0 or more"),
-        ({"segment_channel_share": 2.0}, "is a share from 0 to 1"),
-        ({"predict_n_subsets": 2.5}, "whole number"),
-        ({"check_predictability": "yes"}, "true or false"),
-        ({"hf_z_max": "5"}, "must be a number"),
+        ({"bad_channel_share_review": 0.5},
+         "bad_channel_share_review: give a review threshold not above bad_channel_share_fail"),
+        ({"correlation_min": -1}, "correlation_min: give a number of at least 0"),
+        ({"segment_channel_share": 2.0}, "segment_channel_share: give a number from 0 to 1"),
+        ({"predict_n_subsets": 2.5}, "predict_n_subsets: give a whole number"),
+        ({"check_predictability": "yes"}, "check_predictability: give true or false"),
+        ({"hf_z_max": "5"}, "hf_z_max: give a number"),
+        ({"lowpass_hz": 0.5}, "lowpass_hz: give a value above highpass_hz"),
     ],
 )
 def test_settings_reject_bad_values(changes, words):

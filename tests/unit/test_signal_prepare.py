@@ -552,7 +552,7 @@ def test_window_errors_name_the_field(kwargs, field):
     """Bad window parameters raise ValueError naming the field. Common practice, no
     source."""
     with pytest.raises(ValueError, match=field):
-        plan_windows(1000, sfreq_hz=100.0, **kwargs)
+        plan_windows(1000, sfreq_hz=100.0, **{"window_s": 2.0, "overlap": 0.5, **kwargs})
 
 
 # pyedflib's test recording ------------------------------------------------------------------
