@@ -3,10 +3,14 @@ benchmarks of the pages.
 
 Everything is made up from a seed and inserted with ``bulk_create`` in one transaction:
 no upload is unpacked, no signal is read, no check, feature or model is computed, no job is
-queued and no audit event is written. The rows have the shapes the pages read (quality
-results, feature-set items and site effects, training scores), and every JSON field that
-allows it carries ``"generated": true``. Blob hashes are fake: downloading a generated file,
-table or model fails, as its bytes were never stored.
+queued and no audit event is written. The numbers are invented, but every stored result is
+built by the code the workers use (quality results by ``cairn_science.qc``'s result types,
+channel statuses and verdict rule; window counts by ``cairn_science.signal.plan_windows``;
+feature names by the feature registry; training scores by ``cairn_science.learning``'s metrics
+and the pooling of the training job; manifests by the upload job), so the rows have exactly
+the shapes the pages read. Every JSON field that allows it carries ``"generated": true``. Blob
+hashes are fake: downloading a generated file, table or model fails, as its bytes were never
+stored.
 
 The layout follows the portal's own: each accepted upload adds a dataset version holding the
 site's whole dataset (the second version holds the first's recordings and new ones, so the
@@ -17,7 +21,6 @@ over the newest version of each site, and two training runs on it.
 
 import datetime
 import hashlib
-import json
 import math
 
 import numpy as np
@@ -43,29 +46,34 @@ BASE_1020 = ("Fp1", "Fp2", "F7", "F3", "Fz", "F4", "F8", "T7", "C3", "Cz", "C4",
              "P3", "Pz", "P4", "P8", "O1", "O2")
 EXTRA_1010 = ("FC1", "FC2", "CP1", "CP2", "FC5", "FC6", "CP5", "CP6", "AF3", "AF4", "PO3", "PO4",
               "Oz")
-CLASSIC = {"T7": "T3", "T8": "T4", "P7": "T5", "P8": "T6"}
-MODERN = {classic: modern for modern, classic in CLASSIC.items()}
-# Approximate (polar angle from the vertex, azimuth from the nose towards the right) in
-# degrees, from memory: only for the generated sensor plot, not for any computation.
-ANGLES = {
-    "Fp1": (72, -18), "Fp2": (72, 18), "F7": (72, -54), "F8": (72, 54), "T7": (72, -90),
-    "T8": (72, 90), "P7": (72, -126), "P8": (72, 126), "O1": (72, -162), "O2": (72, 162),
-    "Fz": (36, 0), "Cz": (0, 0), "Pz": (36, 180), "F3": (50, -40), "F4": (50, 40),
-    "C3": (36, -90), "C4": (36, 90), "P3": (50, -140), "P4": (50, 140), "FC1": (22, -50),
-    "FC2": (22, 50), "CP1": (22, -130), "CP2": (22, 130), "FC5": (56, -70), "FC6": (56, 70),
-    "CP5": (56, -110), "CP6": (56, 110), "AF3": (62, -22), "AF4": (62, 22), "PO3": (62, -158),
-    "PO4": (62, 158), "Oz": (72, 180),
-}
-HEAD_RADIUS_M = 0.095
 SAMPLING_RATES_HZ = (500.0, 250.0, 1000.0, 256.0, 512.0)
 PSD_FREQS_HZ = np.arange(0.0, 70.5, 0.5)
-PSD_FREQS_LIST = [float(f) for f in PSD_FREQS_HZ]
-WINDOW_S, WINDOW_STEP_S = 4.0, 2.0  # the protocol's default feature windows, 50 % overlap
-# Which check flags a generated bad channel, and how often (predictability only on caps of
-# 24 channels or more, as the real check needs them).
+# Which check flags a generated bad channel, and how often (predictability only where the
+# real check would run on the cap).
 BAD_CHECKS = {"correlation": 0.2, "deviation": 0.2, "high_frequency": 0.15, "mains": 0.1,
               "jumps": 0.1, "bridging": 0.08, "dropout": 0.05, "predictability": 0.07,
               "marked_by_site": 0.05}
+# Invented values of each check: (good channels' draw, flagged range).
+CHECK_VALUES = {
+    "dropout": (lambda rng, n: np.zeros(n), (0.2, 1.0)),
+    "deviation": (lambda rng, n: rng.normal(0.0, 1.2, n), (6.0, 40.0)),
+    "amplitude_factor": (lambda rng, n: rng.lognormal(0.0, 0.15, n), None),
+    "high_frequency": (lambda rng, n: rng.normal(0.0, 1.0, n), (5.5, 15.0)),
+    "correlation": (lambda rng, n: rng.uniform(0.0, 0.25, n), (0.55, 0.95)),
+    "jumps": (lambda rng, n: np.where(rng.random(n) < 0.15, rng.uniform(0.05, 0.5, n), 0.0),
+              (1.5, 6.0)),
+    "mains": (lambda rng, n: rng.normal(0.0, 2.5, n), (14.0, 30.0)),
+    "bridging": (lambda rng, n: rng.uniform(0.2, 1.8, n), (0.001, 0.009)),
+    "predictability": (lambda rng, n: rng.uniform(0.0, 0.25, n), (0.45, 0.9)),
+}
+# The QCSettings field each check's value is compared with (as run_qc passes them).
+THRESHOLD_FIELDS = {
+    "dropout": "dropout_share_max", "deviation": "deviation_z_max",
+    "amplitude_factor": "deviation_factor_max", "high_frequency": "hf_z_max",
+    "correlation": "correlation_bad_window_share", "jumps": "jump_rate_max_per_min",
+    "mains": "mains_excess_db", "bridging": "bridge_variance_ratio_max",
+    "predictability": "predict_bad_window_share",
+}
 OVERRIDE_REASONS = {
     "good": ("looked at the raw trace: the signal is fine, the flag came from one movement",
              "impedance was checked after the session and was low"),
@@ -81,13 +89,6 @@ class BulkStudyError(ValueError):
 
 def _sha(*parts):
     return hashlib.sha256(":".join(str(p) for p in ("cairn-bulk", *parts)).encode()).hexdigest()
-
-
-def _sig(value, digits=4):
-    """``value`` rounded to ``digits`` significant digits (as the quality results store)."""
-    if value is None or not math.isfinite(value):
-        return None
-    return float(f"{value:.{digits}g}")
 
 
 def _check_request(n_recordings, n_sites, slug):
@@ -125,23 +126,14 @@ def _usernames(slug, n_sites):
                                for role in ("dm", "analyst")]
 
 
-def _positions(channel_names):
-    out = {}
-    for name in channel_names:
-        polar, azimuth = np.radians(ANGLES[MODERN.get(name, name)])
-        out[name] = [round(float(v), 5) for v in (
-            HEAD_RADIUS_M * np.sin(polar) * np.sin(azimuth),
-            HEAD_RADIUS_M * np.sin(polar) * np.cos(azimuth),
-            HEAD_RADIUS_M * np.cos(polar))]
-    return out
-
-
 def _site_plan(index, n_recordings, rng):
     """Cap, rates and the recordings of one site: (participant, session, run) in order."""
     n_channels = int(rng.integers(19, 33))
     names = list(BASE_1020 + EXTRA_1010[:n_channels - len(BASE_1020)])
     if index % 3 == 1:  # one site in three writes the classic names of the temporal sites
-        names = [CLASSIC.get(n, n) for n in names]
+        from cairn_science.qc.positions import MODERN_NAMES
+
+        names = [MODERN_NAMES.get(n, n) for n in names]
     n_participants = math.ceil(n_recordings / RECORDINGS_PER_PARTICIPANT)
     width = max(3, len(str(n_participants)))
     entries = []
@@ -155,7 +147,7 @@ def _site_plan(index, n_recordings, rng):
         first = sum(1 for e in entries if e["p_index"] < math.ceil(n_participants / 2))
     else:
         first = math.ceil(n_recordings / 2)
-    return {"index": index, "channels": names, "positions": _positions(names),
+    return {"index": index, "channels": names,
             "sfreq_hz": SAMPLING_RATES_HZ[index % len(SAMPLING_RATES_HZ)],
             "power_line_hz": 60.0 if index % 3 == 2 else 50.0,
             "hum": float(rng.uniform(0.2, 1.0)), "entries": entries,
@@ -181,239 +173,147 @@ def _blocks(rng, duration_s, run, scale):
     return blocks
 
 
-def _bad_channel_count(rng, target, n_channels, qc):
+def _bad_channel_count(rng, target, n_channels, settings):
     """How many bad channels and how much rejected time a recording of ``target`` verdict
     gets, inside the protocol's thresholds for that verdict."""
-    review_at = math.ceil(qc["bad_channel_share_review"] * n_channels - 1e-9)
-    fail_at = math.ceil(qc["bad_channel_share_fail"] * n_channels - 1e-9)
-    low_time = float(rng.uniform(0.0, 0.8 * qc["rejected_time_share_review"]))
+    review_at = math.ceil(settings.bad_channel_share_review * n_channels - 1e-9)
+    fail_at = math.ceil(settings.bad_channel_share_fail * n_channels - 1e-9)
+    time_review, time_fail = settings.rejected_time_share_review, settings.rejected_time_share_fail
+    low_time = float(rng.uniform(0.0, 0.8 * time_review))
     if target == "pass":
         return min(int(rng.random() < 0.3), review_at - 1), low_time
     if target == "review":
         if review_at <= 3 and rng.random() < 0.6:
             return int(rng.integers(review_at, 4)), low_time
         return min(int(rng.integers(0, 2)), review_at - 1), float(rng.uniform(
-            qc["rejected_time_share_review"], min(0.3, qc["rejected_time_share_fail"] - 0.01)))
+            time_review, min(0.3, time_fail - 0.01)))
     # Fail: a bad cap day (a quarter of the channels or more) or much rejected time.
     if rng.random() < 0.5:
         return fail_at + int(rng.integers(0, 3)), low_time
-    return int(rng.integers(0, min(3, review_at))), float(rng.uniform(
-        qc["rejected_time_share_fail"], qc["rejected_time_share_fail"] + 0.15))
+    return int(rng.integers(0, min(3, review_at))), float(rng.uniform(time_fail, time_fail + 0.15))
 
 
-class _QCWords:
-    """The real checks' words, thresholds and verdict rule (imported here, not at module top:
-    the quality package loads mne)."""
+def _predictability_skipped(names, settings):
+    """The real check's own outcome (with its note) where a cap is too small for its channel
+    subsets; None where the check would run on this cap."""
+    from cairn_science.qc.checks import check_predictability
+    from cairn_science.qc.positions import on_unit_sphere, resolve_positions
 
-    def __init__(self, qc_settings):
-        from cairn_science.qc import QCSettings
-        from cairn_science.qc.checks import WORDS
-        from cairn_science.qc.segments import SEGMENT_WORDS
-        from cairn_science.qc.verdict import decide_verdict
-
-        known = set(QCSettings.__dataclass_fields__)
-        self.settings = QCSettings(**{k: v for k, v in qc_settings.items() if k in known})
-        self.words = WORDS
-        self.segment_words = list(SEGMENT_WORDS.values())
-        self.decide = decide_verdict
-        s = self.settings
-        self.thresholds = {
-            "dropout": s.dropout_share_max, "deviation": s.deviation_z_max,
-            "high_frequency": s.hf_z_max, "correlation": s.correlation_bad_window_share,
-            "jumps": s.jump_rate_max_per_min, "mains": s.mains_excess_db,
-            "bridging": s.bridge_variance_ratio_max,
-            "predictability": s.predict_bad_window_share,
-        }
+    points = resolve_positions(names)
+    placed = np.all(np.isfinite(points), axis=1)
+    unit = np.full_like(points, np.nan)
+    if placed.any():
+        unit[placed] = on_unit_sphere(points[placed])
+    # One sample: the check stops before reading any signal, either for too small subsets
+    # (kept) or for a recording shorter than one window (so it would run on a real one).
+    outcome = check_predictability(
+        np.zeros((len(names), 1)), sfreq_hz=1.0, unit_positions=unit,
+        predictors=np.ones(len(names), dtype=bool), window_s=settings.predict_window_s,
+        bad_window_share=settings.predict_bad_window_share,
+        subset_share=settings.predict_subset_share, min_subset=settings.predict_min_subset)
+    return None if "shorter than one" in (outcome.note or "") else outcome
 
 
-def _qc_result(rng, plan, recording, words, settings_digest, code_version, target):
-    """A quality result with the real result's keys, numbers drawn for ``target``."""
+def _qc_result(rng, plan, recording, settings, code_version, target):
+    """A quality result as the quality job stores it (``QCResult.as_dict()`` and the sensor
+    positions), its numbers drawn for ``target``: channel statuses, reasons and the verdict
+    come from the checks' own code (``cairn_science.qc.run`` and ``.verdict``)."""
+    from cairn_science.qc.checks import ChannelCheck
+    from cairn_science.qc.result import PowerSpectrum, QCResult
+    from cairn_science.qc.run import CHECK_ORDER, _channel_results
+    from cairn_science.qc.segments import FRONTAL, SEGMENT_WORDS, Blinks, Segment
+    from cairn_science.qc.verdict import MOSTLY_SILENT_SHARE, channel_verdict
+
     names = plan["channels"]
     n = len(names)
     duration = recording["duration_s"]
-    n_bad, rejected = _bad_channel_count(rng, target, n, words.settings.as_dict())
+    n_bad, rejected = _bad_channel_count(rng, target, n, settings)
     n_bad = min(n_bad, n - 2)
-    predict = n >= 24
-    checks = [c for c in BAD_CHECKS if predict or c != "predictability"]
+    skipped = plan["predictability"]
+    checks = [c for c in BAD_CHECKS if c != "predictability" or skipped is None]
     weights = np.array([BAD_CHECKS[c] for c in checks])
     bad = rng.choice(n, size=n_bad, replace=False) if n_bad else np.array([], dtype=int)
     why = {int(i): str(rng.choice(checks, p=weights / weights.sum())) for i in bad}
 
-    metrics = {
-        "dropout": np.zeros(n), "deviation": rng.normal(0.0, 1.2, n),
-        "high_frequency": rng.normal(0.0, 1.0, n), "correlation": rng.uniform(0.0, 0.25, n),
-        "jumps": np.where(rng.random(n) < 0.15, rng.uniform(0.05, 0.5, n), 0.0),
-        "mains": rng.normal(0.0, 2.5, n), "bridging": rng.uniform(0.2, 1.8, n),
-        "predictability": rng.uniform(0.0, 0.25, n) if predict else np.full(n, np.nan),
-    }
-    flagged = {"dropout": (0.2, 1.0), "deviation": (6.0, 40.0), "high_frequency": (5.5, 15.0),
-               "correlation": (0.55, 0.95), "jumps": (1.5, 6.0), "mains": (14.0, 30.0),
-               "bridging": (0.001, 0.009), "predictability": (0.45, 0.9)}
+    outcomes = {}
+    for check in CHECK_ORDER:
+        if check == "predictability" and skipped is not None:
+            outcomes[check] = skipped
+            continue
+        if check == "predictability" and not settings.check_predictability:
+            continue
+        draw, flagged_range = CHECK_VALUES[check]
+        values = draw(rng, n)
+        flagged = np.zeros(n, dtype=bool)
+        for i, reason in why.items():
+            if reason == check:
+                values[i] = rng.uniform(*flagged_range)
+                flagged[i] = True
+        threshold = float(getattr(settings, THRESHOLD_FIELDS[check]))
+        outcomes[check] = ChannelCheck(
+            check, values, threshold, flagged,
+            partners=[names[(i + 1) % n] for i in range(n)] if check == "bridging" else [],
+            low_threshold=1.0 / threshold if check == "amplitude_factor" else None)
+    marked = {names[i]: str(rng.choice(SITE_DESCRIPTIONS)) for i, reason in why.items()
+              if reason == "marked_by_site"}
+    silent = outcomes["dropout"].values >= MOSTLY_SILENT_SHARE
+    channels = _channel_results(names, outcomes, marked_by_site=marked, mostly_silent=silent)
+
     power = (15.0 - 18.0 * np.log10(1.0 + PSD_FREQS_HZ))[None, :].repeat(n, axis=0)
-    posterior = np.array([max(0.0, -plan["positions"][c][1] / HEAD_RADIUS_M) + 0.3
+    posterior = np.array([max(0.0, -plan["positions"].get(c, (0, 0, 0))[1] / 0.1) + 0.3
                           for c in names])
     power += 6.0 * posterior[:, None] * np.exp(-0.5 * ((PSD_FREQS_HZ - 10.0) / 1.5) ** 2)
-    power += 20.0 * plan["hum"] * np.exp(
-        -0.5 * ((PSD_FREQS_HZ - recording["power_line_hz"]) / 0.4) ** 2)[None, :]
+    mains = np.exp(-0.5 * ((PSD_FREQS_HZ - recording["power_line_hz"]) / 0.4) ** 2)
+    power += 20.0 * plan["hum"] * mains[None, :]
     power += rng.normal(0.0, 0.8, power.shape) + rng.normal(0.0, 1.5, (n, 1))
-    channels = {}
-    bad_reasons = {}
-    for i, name in enumerate(names):
-        check = why.get(i)
-        reasons = []
-        if check is not None and check != "marked_by_site":
-            low, high = flagged[check]
-            metrics[check][i] = rng.uniform(low, high)
-            text = words.words[check]
-            if check == "bridging":
-                text = text.format(partner=names[(i + 1) % n])
-            reasons.append({"check": check, "words": text, "value": _sig(metrics[check][i]),
-                            "threshold": _sig(words.thresholds[check])})
-            if check == "dropout":
-                power[i] = -60.0
-            elif check == "deviation":
-                power[i] += 15.0
-            elif check == "high_frequency":
-                power[i] += 12.0 * (PSD_FREQS_HZ > 30.0)
-            elif check == "mains":
-                power[i] += 18.0 * np.exp(
-                    -0.5 * ((PSD_FREQS_HZ - recording["power_line_hz"]) / 0.4) ** 2)
-        marked = check == "marked_by_site"
-        if marked:
-            reasons.append({"check": "marked_by_site", "words": words.words["marked_by_site"],
-                            "value": None, "threshold": None})
-            bad_reasons[name] = [words.words["marked_by_site"]]
-        elif reasons:
-            bad_reasons[name] = [r["words"] for r in reasons]
-        channels[name] = {
-            "status": "bad" if reasons else "good", "reasons": reasons,
-            "metrics": {key: _sig(float(values[i])) for key, values in metrics.items()},
-            "marked_by_site": marked,
-            "site_description": str(rng.choice(SITE_DESCRIPTIONS)) if marked else None,
-        }
+    for i, check in why.items():
+        if check == "dropout":
+            power[i] = -60.0
+        elif check == "deviation":
+            power[i] += 15.0
+        elif check == "high_frequency":
+            power[i] += 12.0 * (PSD_FREQS_HZ > 30.0)
+        elif check == "mains":
+            power[i] += 18.0 * mains
 
     segments = []
     if rejected > 0:
         k = int(rng.integers(1, 5))
         lengths = rng.dirichlet(np.ones(k)) * rejected * duration
-        starts = np.sort(rng.uniform(0.0, duration - lengths.sum(), k))
-        offset = 0.0
-        for start, length in zip(starts, lengths, strict=True):
-            reasons = list(rng.choice(words.segment_words, size=int(rng.integers(1, 3)),
-                                      replace=False))
-            segments.append({"onset_s": round(float(start + offset), 3),
-                             "duration_s": round(float(length), 3), "reasons": reasons})
-            offset += length
-        rejected = sum(s["duration_s"] for s in segments) / duration
-    rejected = round(float(rejected), 4)
-    n_silent = sum(1 for c in why.values() if c == "dropout")
-    uncorrelated = sum(1 for c in why.values() if c == "correlation") / n
-    verdict, verdict_reasons = words.decide(
-        settings=words.settings, sfreq_hz=recording["sfreq_hz"], duration_s=duration,
-        n_channels=n, bad_reasons=bad_reasons, n_with_signal=n - n_silent,
-        rejected_share=rejected, uncorrelated_share=uncorrelated)
-    frontal = [c for c in names if c.lower().startswith(("fp", "af"))]
+        starts = np.sort(rng.uniform(0.0, duration - lengths.sum(), k)) + np.concatenate(
+            [[0.0], np.cumsum(lengths)[:-1]])
+        words = list(SEGMENT_WORDS.values())
+        segments = [Segment(round(float(start), 3), round(float(length), 3), list(
+            rng.choice(words, size=int(rng.integers(1, 3)), replace=False)))
+            for start, length in zip(starts, lengths, strict=True)]
+    rejected = min(1.0, sum(s.duration_s for s in segments) / duration)
+    reference = np.array([name not in marked for name in names]) & ~outcomes["dropout"].flagged
+    inputs = {"sfreq_hz": recording["sfreq_hz"], "duration_s": duration,
+              "n_with_signal": int((~silent).sum()), "rejected_share": rejected,
+              "uncorrelated_share": float((outcomes["correlation"].flagged & reference).sum())
+              / max(1, int(reference.sum()))}
+    verdict, reasons = channel_verdict(
+        settings=settings, inputs=inputs,
+        channels={name: (c.status, [r.words for r in c.reasons]) for name, c in channels.items()})
     blinks = int(duration / 60.0 * rng.uniform(6.0, 22.0))
-    notes = [] if predict else [
-        f"prediction from the other channels not checked: {n} channels, the check needs 24 "
-        "or more"]
-    result = {
-        "code_version": code_version, "settings_digest": settings_digest, "verdict": verdict,
-        "verdict_reasons": verdict_reasons, "sfreq_hz": recording["sfreq_hz"],
-        "duration_s": duration, "power_line_hz": recording["power_line_hz"],
-        "rejected_share": rejected,
-        "bad_channels": [c for c in names if channels[c]["status"] == "bad"],
-        "channels": channels, "segments": segments,
-        "blinks": {"count": blinks, "per_minute": _sig(blinks / (duration / 60.0), 3),
-                   "channels": frontal},
-        "notes": notes,
-        "psd": {"freqs_hz": PSD_FREQS_LIST, "unit": "dB re 1 µV²/Hz",
-                "channels": {c: np.round(power[i], 1).tolist() for i, c in enumerate(names)}},
-        "positions": plan["positions"],
-        "generated": True,
-    }
-    return result
-
-
-def _window_counts(duration_s, blocks, segments):
-    """Candidate, kept and left-out windows as the feature pipeline counts them, and the
-    kept windows per block."""
-    starts = np.arange(0.0, duration_s - WINDOW_S + 1e-9, WINDOW_STEP_S)
-    ends = starts + WINDOW_S
-    bad = np.zeros(starts.size, dtype=bool)
-    for s in segments:
-        bad |= (starts < s["onset_s"] + s["duration_s"]) & (ends > s["onset_s"])
-    inside = np.array([(starts >= b["onset_s"]) & (ends <= b["onset_s"] + b["duration_s"])
-                       for b in blocks])
-    touches = np.array([(starts < b["onset_s"] + b["duration_s"]) & (ends > b["onset_s"])
-                        for b in blocks])
-    within = inside.any(axis=0)
-    straddles = ~within & (touches.sum(axis=0) >= 2) & ~bad
-    outside = ~within & ~straddles & ~bad
-    keep = within & ~bad
-    per_block = [int((inside[j] & keep).sum()) for j in range(len(blocks))]
-    return {"candidates": int(starts.size), "kept": int(keep.sum()),
-            "bad_segment": int(bad.sum()), "straddles_blocks": int(straddles.sum()),
-            "outside_blocks": int(outside.sum())}, per_block
+    result = QCResult(
+        channels=channels, segments=segments, rejected_share=rejected,
+        blinks=Blinks(count=blinks, per_minute=blinks / (duration / 60.0), onsets_s=[],
+                      channels=[c for c in names if FRONTAL.match(c)
+                                and channels[c].status == "good"]),
+        verdict=verdict, verdict_reasons=reasons, verdict_inputs=inputs,
+        psd=PowerSpectrum(freqs_hz=PSD_FREQS_HZ, ch_names=[], power_db=power[:0]),
+        sfreq_hz=recording["sfreq_hz"], duration_s=duration,
+        power_line_hz=recording["power_line_hz"],
+        notes=[o.note for o in outcomes.values() if o.note],
+        settings_digest=settings.digest(), code_version=code_version).as_dict()
+    # The spectrum's layout from PowerSpectrum.as_dict, its values rounded as it rounds them
+    # (to 0.1 dB) but by numpy: the per-value rounding there costs more than the rest here.
+    result["psd"]["channels"] = dict(zip(names, np.round(power, 1).tolist(), strict=True))
+    return {**result, "positions": plan["positions"], "generated": True}
 
 
 # --------------------------------------------------------------------------- training scores
-
-
-def _scores(confusion, labels):
-    """Accuracy, balanced accuracy, macro-F1, Cohen's kappa, recall, support and the
-    confusion matrix from a confusion matrix (rows true), with the conventions of
-    ``cairn_science.learning.metrics.scores``."""
-    c = np.asarray(confusion, dtype=float)
-    n = c.sum()
-    rows, cols, diag = c.sum(axis=1), c.sum(axis=0), np.diag(c)
-    recall = np.divide(diag, rows, out=np.zeros_like(diag), where=rows > 0)
-    precision = np.divide(diag, cols, out=np.zeros_like(diag), where=cols > 0)
-    f1 = np.divide(2 * precision * recall, precision + recall,
-                   out=np.zeros_like(diag), where=(precision + recall) > 0)
-    present = (rows > 0) | (cols > 0)
-    expected = float((rows * cols).sum() / n ** 2) if n else 1.0
-    accuracy = float(diag.sum() / n) if n else 0.0
-    kappa = None if expected >= 1.0 else (accuracy - expected) / (1.0 - expected)
-    return {"accuracy": accuracy,
-            "balanced_accuracy": float(recall[rows > 0].mean()) if (rows > 0).any() else 0.0,
-            "macro_f1": float(f1[present].mean()) if present.any() else 0.0,
-            "kappa": None if kappa is None else float(kappa),
-            "confusion": c.astype(int).tolist(),
-            "recall": {lab: float(r) for lab, r in zip(labels, recall, strict=True)},
-            "support": {lab: int(s) for lab, s in zip(labels, rows, strict=True)},
-            "n": int(n)}
-
-
-def _summarise(values):
-    arr = np.array([np.nan if v is None else v for v in values], dtype=float)
-    finite = arr[np.isfinite(arr)]
-    if not finite.size:
-        return {"mean": None, "sd": None, "min": None, "max": None, "n": 0,
-                "n_missing": int(arr.size)}
-    return {"mean": float(finite.mean()),
-            "sd": float(finite.std(ddof=1)) if finite.size >= 2 else None,
-            "min": float(finite.min()), "max": float(finite.max()), "n": int(finite.size),
-            "n_missing": int(arr.size - finite.size)}
-
-
-def _bootstrap_ci(per_person, rng, n_boot=1000):
-    """Participant bootstrap of the pooled balanced accuracy from per-person confusions."""
-    people = per_person.shape[0]
-    picks = rng.integers(0, people, size=(n_boot, people))
-    weights = np.zeros((n_boot, people))
-    np.add.at(weights, (np.arange(n_boot)[:, None], picks), 1.0)
-    pooled = (weights @ per_person.reshape(people, -1)).reshape(n_boot, *per_person.shape[1:])
-    rows = pooled.sum(axis=2)
-    diag = np.diagonal(pooled, axis1=1, axis2=2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        recall = np.where(rows > 0, diag / rows, np.nan)
-        boot = np.nanmean(recall, axis=1)
-    observed = _scores(per_person.sum(axis=0), list(range(per_person.shape[1])))
-    low, high = np.quantile(boot[np.isfinite(boot)], [0.025, 0.975])
-    return {"low": float(low), "high": float(high), "level": 0.95, "n_boot": n_boot,
-            "observed": observed["balanced_accuracy"], "n_participants": int(people),
-            "n_undefined": int((~np.isfinite(boot)).sum())}
 
 
 def _confusion_probabilities(skill, k):
@@ -428,50 +328,56 @@ def _confusion_probabilities(skill, k):
 
 
 def _evaluate(rng, models, people, labels, n_splits):
-    """Per-model fold results and pooled summaries, drawn from a per-person confusion
-    model. ``people``: [(id, site slug, true counts per label)]."""
+    """Per-model fold results and their pooling as the training job stores them, from
+    invented predictions (a per-person confusion model) scored by the real metrics and
+    pooled by ``cairn_science.learning.run.pooled``. ``people``: [(id, site slug, true
+    counts per label)]. Fold results keep no per-row predictions (``test_rows`` and
+    ``predicted`` are stored empty)."""
+    from cairn_science.learning import metrics
+    from cairn_science.learning.run import Data, pooled
+
     k = len(labels)
     order = rng.permutation(len(people))
     fold_of = np.empty(len(people), dtype=int)
     fold_of[order] = np.arange(len(people)) % n_splits
     truth = np.array([counts for _, _, counts in people], dtype=int)
-    sites = np.array([site for _, site, _ in people])
-    total = int(truth.sum())
+    person_of = np.repeat(np.arange(len(people)), truth.sum(axis=1))
+    true_code = np.tile(np.arange(k), len(people)).repeat(truth.ravel())
+    bounds = np.concatenate([[0], np.cumsum(truth.ravel())])
+    names = np.array(labels)
+    ids = np.array([person for person, _, _ in people])
+    y, row_fold = names[true_code], fold_of[person_of]
+    sites = np.array([site for _, site, _ in people])[person_of]
+    data = Data(X=np.empty((y.size, 0)), y=y, labels=list(labels), participants=ids[person_of],
+                sites=sites, blocks=np.zeros(y.size), order=np.zeros(y.size), columns=[],
+                rows=np.arange(y.size), excluded={})
     out, folds = {}, {}
     for name, skill in models:
-        per_person = np.zeros((len(people), k, k))
-        for p in range(len(people)):
+        predicted = np.empty(y.size, dtype=int)
+        for p in range(len(people)):  # rows run by person, then by true class
             probabilities = _confusion_probabilities(
                 float(np.clip(skill + rng.normal(0.0, 0.08), 0.2, 0.92)), k)
             for i in range(k):
-                per_person[p, i] = rng.multinomial(truth[p, i], probabilities[i])
-        fold_results = []
+                start, stop = bounds[p * k + i], bounds[p * k + i + 1]
+                predicted[start:stop] = rng.choice(k, size=stop - start, p=probabilities[i])
+        predicted = names[predicted]
+        results = []
         for f in range(n_splits):
-            mine = fold_of == f
-            n_test = int(truth[mine].sum())
-            fold_results.append({
+            test = np.flatnonzero(row_fold == f)
+            results.append({
                 "model": name, "fold": f, "repeat": 0,
-                "held_out": sorted(people[p][0] for p in np.flatnonzero(mine)),
-                "n_train": total - n_test, "n_test": n_test,
-                "scores": _scores(per_person[mine].sum(axis=0), labels),
-                "per_site": {s: _scores(per_person[mine & (sites == s)].sum(axis=0), labels)
-                             for s in sorted(set(sites[mine].tolist()))},
-                "test_rows": [], "predicted": [], "generated": True,
-            })
-        counts = truth.sum(axis=0)
-        out[name] = {
-            "pooled": _scores(per_person.sum(axis=0), labels),
-            "per_fold": {key: _summarise([r["scores"][key] for r in fold_results])
-                         for key in ("accuracy", "balanced_accuracy", "macro_f1", "kappa")},
-            "per_site": {s: _scores(per_person[sites == s].sum(axis=0), labels)
-                         for s in sorted(set(sites.tolist()))},
-            "chance": {"balanced_accuracy": 1.0 / k, "accuracy": float(counts.max() / total)},
-            "ci": _bootstrap_ci(per_person, rng),
-            "n_folds": n_splits,
-            "fold_scores": [{"fold": r["fold"], "repeat": 0, "held_out": r["held_out"],
-                             **r["scores"]} for r in fold_results],
-        }
-        folds[name] = fold_results
+                "held_out": sorted(ids[fold_of == f].tolist()),
+                "n_train": int(y.size - test.size), "n_test": int(test.size),
+                "scores": metrics.scores(y[test], predicted[test], labels=labels),
+                "per_site": metrics.per_site(y[test], predicted[test], sites[test],
+                                             labels=labels),
+                "test_rows": test.tolist(), "predicted": predicted[test].tolist()})
+        # As the training job's last step: pooled over the folds, with each fold's scores.
+        out[name] = {**pooled(results, data), "fold_scores": [
+            {"fold": r["fold"], "repeat": r["repeat"], "held_out": r["held_out"], **r["scores"]}
+            for r in results]}
+        folds[name] = [{**r, "test_rows": [], "predicted": [], "generated": True}
+                       for r in results]
     return out, folds
 
 
@@ -571,6 +477,7 @@ class _Builder:
     # ----------------------------------------------------------------- uploads and versions
 
     def datasets(self):
+        from portal.datasets.jobs import _diff, _manifest_sha  # as the upload job stores them
         from portal.datasets.models import (
             DatasetVersion,
             Participant,
@@ -636,7 +543,7 @@ class _Builder:
                 upload = plan["uploads"][2 if step else 0]
                 versions.append(DatasetVersion(
                     site=site, study=self.study, number=step + 1, upload=upload, parent=parent,
-                    manifest_sha256=_manifest(files), n_files=len(files),
+                    manifest_sha256=_manifest_sha(files), n_files=len(files),
                     total_bytes=sum(size for _, size in files.values()),
                     diff=_diff(plan["files"][0] if step else {}, files),
                     created_at=upload.finished_at))
@@ -718,13 +625,18 @@ class _Builder:
     # ----------------------------------------------------------------- quality
 
     def quality(self):
+        from cairn_science.qc.settings import QCSettings
+        from portal.quality.jobs import sensor_positions
         from portal.quality.models import QCChannel, QCRound, QCRun
         from portal.quality.services import QC_CODE_VERSION, settings_digest
 
         digest = settings_digest(self.qc_settings)
-        words = _QCWords(self.qc_settings)
+        settings = QCSettings.from_stored(self.qc_settings)  # as the quality job reads them
         rounds = []
         for plan in self.plans:
+            # No electrodes.tsv: the template positions by name, as the job stores them.
+            plan["positions"] = sensor_positions(plan["channels"], None)
+            plan["predictability"] = _predictability_skipped(plan["channels"], settings)
             for version in plan["versions"]:
                 rounds.append(QCRound(version=version, settings_digest=digest,
                                       code_version=QC_CODE_VERSION, settings=self.qc_settings,
@@ -735,8 +647,7 @@ class _Builder:
             for k, (facts, target) in enumerate(zip(
                     plan["recordings"], self.verdict_targets(len(plan["recordings"])),
                     strict=True)):
-                result = _qc_result(self.rng, plan, facts, words, digest, QC_CODE_VERSION,
-                                    target)
+                result = _qc_result(self.rng, plan, facts, settings, QC_CODE_VERSION, target)
                 accepted = plan["versions"][0 if k < plan["n_first"] else 1].created_at
                 run = QCRun(
                     site=site, recording_sha256=facts["sha256"], settings_digest=digest,
@@ -764,23 +675,25 @@ class _Builder:
         return [targets[i] for i in self.rng.permutation(n)]
 
     def overrides(self):
-        """About 2 % of each site's recordings get a person's decision on one channel."""
-        from portal.quality.models import ChannelOverride
+        """About 2 % of each site's recordings get a person's decision on one channel, and
+        the result its verdict after that decision (as ``set_override`` writes it)."""
+        from portal.quality.models import ChannelOverride, EffectiveVerdict
+        from portal.quality.services import decided_verdict
 
-        items = []
+        items, decided = [], []
         for site, plan in zip(self.sites, self.plans, strict=True):
             recordings = plan["recordings"]
             chosen = self.rng.choice(len(recordings), replace=False,
                                      size=max(1, round(0.02 * len(recordings))))
             for k in sorted(int(c) for c in chosen):
                 facts = recordings[k]
-                result = facts["run"].result
-                bad = result["bad_channels"]
+                run = facts["run"]
+                bad = run.result["bad_channels"]
                 if bad:
                     channel, status = str(self.rng.choice(bad)), "good"
                 else:
                     channel, status = str(self.rng.choice(plan["channels"])), "bad"
-                when = min(facts["run"].created_at + datetime.timedelta(
+                when = min(run.created_at + datetime.timedelta(
                     days=self.rng.uniform(0.1, 3.0)), self.ago(12))
                 item = ChannelOverride(
                     site=site, recording_sha256=facts["sha256"], channel=channel,
@@ -788,12 +701,22 @@ class _Builder:
                     created_by=self.managers[site.slug], created_at=when)
                 facts.setdefault("overrides", {})[channel] = item
                 items.append(item)
+                after = decided_verdict(run, facts["overrides"])
+                decided.append(EffectiveVerdict(
+                    run=run, verdict=after["verdict"], verdict_reasons=after["verdict_reasons"],
+                    n_bad_channels=after["n_bad_channels"], updated_at=when))
         ChannelOverride.objects.bulk_create(items)
+        EffectiveVerdict.objects.bulk_create(decided)
         self.counts["channel_overrides"] = len(items)
 
     # ----------------------------------------------------------------- features
 
     def features(self):
+        from django.db.models import prefetch_related_objects
+
+        from cairn_science.features.extract import FeatureRequest, describe_columns
+        from cairn_science.features.pipeline import NON_FEATURE_COLUMNS
+        from cairn_science.signal import plan_windows
         from portal.features.models import (
             FeatureSet,
             FeatureSetItem,
@@ -804,9 +727,9 @@ class _Builder:
             FEATURES_CODE_VERSION,
             canonical_digest,
             channel_key,
+            recording_inputs,
             resolve_params,
         )
-        from portal.quality.services import effective_channels
 
         pinned = [(facts["latest"], facts["run"]) for plan in self.plans
                   for facts in plan["recordings"]]
@@ -815,34 +738,29 @@ class _Builder:
         # neither share nor collide on the unique set identity or the per-recording parts.
         params.update(generated=True, generated_for=self.slug)
         params_digest = canonical_digest(params)
-        channels = params["preprocessing"]["channels"]
+        pre = params["preprocessing"]
+        channels = pre["channels"]
+        prefetch_related_objects([row for row, _ in pinned], "blocks")
         items, parts, digests = [], [], []
         for plan in self.plans:
             for facts in plan["recordings"]:
                 row, run = facts["latest"], facts["run"]
-                overrides = facts.get("overrides", {})
-                effective = effective_channels(run, overrides)
-                inputs = {
-                    "recording_sha256": row.sha256,
-                    "qc": {"settings_digest": run.settings_digest,
-                           "code_version": run.code_version, "verdict": run.verdict},
-                    "bad_channels": sorted(c for c, info in effective.items()
-                                           if info["status"] == "bad"),
-                    "overrides": sorted([c, item.status] for c, item in overrides.items()),
-                    "bad_segments": [[s["onset_s"], s["duration_s"]]
-                                     for s in run.result["segments"]],
-                    "blocks": facts["blocks"], "power_line_hz": row.power_line_hz,
-                }
+                inputs = recording_inputs(row, run)  # what a feature request pins
                 digest = canonical_digest(inputs)
-                counts, per_block = _window_counts(row.duration_s, facts["blocks"],
-                                                   run.result["segments"])
-                facts["kept_per_block"] = per_block
+                # The real windows, minus the band-pass's edge segments (no filter is made).
+                windows = plan_windows(
+                    round(row.duration_s * pre["analysis_sfreq_hz"]),
+                    sfreq_hz=pre["analysis_sfreq_hz"], window_s=pre["window_s"],
+                    overlap=pre["overlap"], blocks=inputs["blocks"],
+                    bad_segments=[tuple(s) for s in inputs["bad_segments"]])
+                facts["kept_per_block"] = np.bincount(
+                    windows.block, minlength=len(inputs["blocks"])).tolist()
                 bad = {channel_key(c) for c in inputs["bad_channels"]}
                 part = RecordingFeatures(
                     site=row.version.site, recording_sha256=row.sha256, input_digest=digest,
                     params_digest=params_digest, code_version=FEATURES_CODE_VERSION,
-                    table_sha256=_sha(self.seed, "part", digest), n_windows=counts["kept"],
-                    window_counts=counts,
+                    table_sha256=_sha(self.seed, "part", digest),
+                    n_windows=windows.counts["kept"], window_counts=windows.counts,
                     channel_status={c: "interpolated" if channel_key(c) in bad else "good"
                                     for c in channels},
                     steps=[{"step": "generated", "applied": False, "reason": GENERATED}],
@@ -851,14 +769,10 @@ class _Builder:
                 items.append(FeatureSetItem(recording=row, qc_run=run, input_digest=digest,
                                             inputs=inputs, part=part))
                 digests.append(digest)
-        bands = [b["name"] for b in params["features"]["bands"]]
-        self.feature_columns = [f"{band}.{kind}.{c}" for band in bands
-                                for kind in ("absolute_power", "relative_power")
-                                for c in channels]
-        self.feature_columns += [f"{name}.{c}" for name in (
-            "spectral_entropy", "hjorth_mobility", "hjorth_complexity") for c in channels]
+        request = FeatureRequest.from_dict(params["features"])
+        self.feature_columns = [c["name"] for c in describe_columns(request, channels)]
         n_rows = sum(p.n_windows for p in parts)
-        n_columns = 13 + len(self.feature_columns)
+        n_columns = len(NON_FEATURE_COLUMNS) + len(self.feature_columns)
         key = canonical_digest({"inputs": sorted(digests), "params": params,
                                 "code_version": FEATURES_CODE_VERSION})
         self.feature_set = FeatureSet.objects.create(
@@ -876,47 +790,31 @@ class _Builder:
         self.counts.update(feature_sets=1, feature_items=len(items), feature_rows=n_rows)
 
     def site_effects(self, n_rows):
-        """A site-effect report with the real report's keys, its numbers drawn."""
-        slugs = [s.slug for s in self.sites]
-        report = {"sites": slugs, "n_rows": n_rows,
-                  "n_participants": sum(p["n_participants"] for p in self.plans),
-                  "generated": True}
-        if len(slugs) < 2:
-            return {**report, "applies": False, "why": "one site only: nothing to compare"}
-        relative = [c for c in self.feature_columns if ".relative_power." in c]
-        picked = self.rng.choice(len(relative), size=min(10, len(relative)), replace=False)
-        eta = np.sort(self.rng.uniform(0.05, 0.4, picked.size))[::-1]
-        top = [{"column": relative[j], "eta_squared": round(float(e), 4),
-                "site_means": {s: round(float(self.rng.uniform(0.05, 0.4)), 6) for s in slugs}}
-               for j, e in zip(picked, eta, strict=True)]
-        chance = 1.0 / len(slugs)
-        pooled = min(1.0, chance + float(self.rng.uniform(0.05, 0.35)))
-        splits = min(5, min(p["n_participants"] for p in self.plans))
-        report.update(applies=True, top_features=top, median_eta_squared=round(
-            float(np.median(eta)) / 2, 4), chance=round(chance, 4))
-        if splits < 2:
-            report["classifier"] = {"ran": False, "why": "a site has fewer than 2 "
-                                    "participants: no grouped split"}
-            return report
-        report["classifier"] = {
-            "ran": True, "model": "standardised logistic regression", "n_splits": splits,
-            "grouping": "participant", "balanced_accuracy": round(pooled, 4),
-            "fold_mean": round(pooled - 0.01, 4), "fold_sd": round(float(
-                self.rng.uniform(0.02, 0.08)), 4)}
-        # 0.2 above chance counts as strong, as in cairn_science/features/site_effects.py.
-        report["warning"] = (
-            f"the site can be told from these features with balanced accuracy {pooled:.2f} "
-            f"(chance {chance:.2f}) on participants not seen in training: a classifier may "
-            "learn the site, not the workload; consider per-site standardisation (fitted on "
-            "training folds only) or leave-one-site-out validation"
-            if pooled - chance >= 0.2 else "")
-        return report
+        """The site-effect report of ``cairn_science.features.site_effects``, run on one
+        invented row of relative band powers per participant (each site shifted a little),
+        with the table's row count."""
+        from cairn_science.features.site_effects import site_effects
+
+        columns = [c for c in self.feature_columns if ".relative_power." in c]
+        sites, people = [], []
+        for site, plan in zip(self.sites, self.plans, strict=True):
+            labels = sorted({e["participant"] for e in plan["entries"]})
+            sites += [site.slug] * len(labels)
+            people += labels
+        shift = {s.slug: self.rng.normal(0.0, 0.4, len(columns)) for s in self.sites}
+        values = self.rng.normal(0.0, 1.0, (len(people), len(columns))) + np.array(
+            [shift[s] for s in sites]).reshape(len(people), len(columns))
+        report = site_effects(values, sites=sites, participants=people, columns=columns,
+                              random_state=self.seed)
+        return {**report, "n_rows": n_rows, "generated": True}
 
     # ----------------------------------------------------------------- training
 
     def training(self):
+        from cairn_science.learning import metrics
         from cairn_science.learning.spec import DEFAULT_QC, TrainingSpec
         from portal.features.services import canonical_digest
+        from portal.training.jobs import _evaluation, _selection, plain
         from portal.training.models import (
             FoldScore,
             ModelRelease,
@@ -952,28 +850,35 @@ class _Builder:
         ]
         scores, releases, made = [], [], []
         for number, (models, statistics, when, release_state) in enumerate(runs_asked):
-            spec = TrainingSpec.from_dict({
+            spec_object = TrainingSpec.from_dict({
                 "feature_set": self.feature_set.pk, "label": {"kind": "level"},
                 "validation": {"scheme": "grouped_kfold", "n_splits": n_splits},
                 "models": [{"learner": "lda"} if name == "lda" else
                            {"learner": "logistic"} if name == "logistic" else
                            {"ensemble": "bagging", "learner": "lda", "n_members": 10}
                            for name, _ in models],
-                "statistics": statistics, "seed": self.seed + number}).as_dict()
+                "statistics": statistics, "seed": self.seed + number})
+            spec = spec_object.as_dict()
             results, folds = _evaluate(self.rng, models, rows, labels, n_splits)
-            best = max(results, key=lambda m: (results[m]["per_fold"]["balanced_accuracy"]
-                                               ["mean"], m))
-            stats = {"paired": [], "permutation": None}
+            stats = {"paired": [], "permutation": None,
+                     "selection": _selection(spec_object, results, folds)}
+            best = stats["selection"]["chosen"]
             if statistics.get("permutations"):
-                null = self.rng.normal(1.0 / len(labels), 0.02, statistics["permutations"])
+                n_perm = statistics["permutations"]
+                null = self.rng.normal(1.0 / len(labels), 0.02, n_perm)
                 observed = results[best]["pooled"]["balanced_accuracy"]
-                stats["permutation"] = {
-                    "model": best, "p_value": (1.0 + (null >= observed).sum()) / (1 + null.size),
+                p = (1.0 + (null >= observed).sum()) / (1 + null.size)
+                stats["permutation"] = {  # the job's keys; the null drawn, nothing refitted
+                    "model": best, "selection": stats["selection"]["how"], "n_folds": n_splits,
+                    "n_fits": n_perm * len(models) * n_splits,
+                    "max_fits": n_perm * len(models) * n_splits, "p_value": p,
+                    "naive_p_value": p, "min_p_value": metrics.smallest_p(n_perm),
                     "observed": observed, "null_mean": float(null.mean()),
-                    "null_sd": float(null.std(ddof=1)), "n_permutations": int(null.size),
+                    "null_sd": float(null.std(ddof=1)), "n_permutations": n_perm,
                     "n_blocks": sum(len(f["blocks"]) for p in self.plans
                                     for f in p["recordings"]),
-                    "null": [round(float(v), 4) for v in null]}
+                    "null": [round(float(v), 4) for v in null], "n_models": len(models),
+                    "n_fitted": n_perm * len(models), "n_stopped_early": 0}
             classes = {lv: int(sum(r[2][j] for r in rows)) for j, lv in enumerate(labels)}
             run = TrainingRun(
                 study=self.study, feature_set=self.feature_set, spec=spec,
@@ -987,29 +892,25 @@ class _Builder:
                                                 "too few windows in the recording": 0,
                                                 "no label of the chosen kind": 0},
                               "outer_folds": n_splits, "paired_folds": None, "generated": True},
-                results={"models": results, "statistics": stats, "release_model": best,
-                         "labels": labels, "generated": True},
+                results=plain({"models": results, "statistics": stats, "release_model": best,
+                               "labels": labels, "generated": True}),
                 created_by=self.analysts[self.sites[0].slug], created_at=when,
                 finished_at=when + datetime.timedelta(hours=2))
             run.save()
             made.append(run)
-            scores += [FoldScore(run=run, model=name, purpose="outer", fold=r["fold"], result=r)
+            scores += [FoldScore(run=run, model=name, purpose="outer", fold=r["fold"],
+                                 result=plain(r))
                        for name, fold_results in folds.items() for r in fold_results]
-            best_result = results[best]
             approved = release_state == ReleaseState.APPROVED
-            releases.append(ModelRelease(
+            releases.append(ModelRelease(  # the pooled release's scores, as the job stores them
                 run=run, model=best, kind="pooled",
                 model_sha256=_sha(self.seed, "model", number),
                 model_digest=_sha(self.seed, "model-digest", number),
                 card_sha256=_sha(self.seed, "card", number),
                 spec_sha256=_sha(self.seed, "features-json", number), trusted_types=[],
-                scores={"scheme": spec["validation"], "per_fold": best_result["per_fold"],
-                        "pooled": {k: best_result["pooled"][k] for k in (
-                            "accuracy", "balanced_accuracy", "macro_f1", "kappa")},
-                        "ci": best_result["ci"], "chance": best_result["chance"],
-                        "per_site": {s: {k: v[k] for k in ("accuracy", "balanced_accuracy", "n")}
-                                     for s, v in best_result["per_site"].items()},
-                        "generated": True},
+                scores=plain({"evaluation": "pooled", "scheme": spec["validation"],
+                              **_evaluation(results[best]), "permutation": stats["permutation"],
+                              "selection": stats["selection"], "generated": True}),
                 state=release_state, approved_by=self.lead if approved else None,
                 approved_at=when + datetime.timedelta(days=1) if approved else None,
                 created_at=when + datetime.timedelta(hours=2)))
@@ -1038,17 +939,3 @@ def _bulk_create_big_json(model, rows):
     finally:
         for row, stamp in zip(rows, stamps, strict=True):
             row.created_at = stamp
-
-
-def _manifest(files):
-    """sha256 of the sorted (path, sha256, bytes) list, as accepted versions store it."""
-    rows = sorted((path, sha, size) for path, (sha, size) in files.items())
-    return hashlib.sha256(json.dumps(rows, separators=(",", ":")).encode()).hexdigest()
-
-
-def _diff(parent_files, files):
-    added = sorted(set(files) - set(parent_files))
-    removed = sorted(set(parent_files) - set(files))
-    changed = sorted(p for p in set(files) & set(parent_files) if files[p] != parent_files[p])
-    return {"added": added, "removed": removed, "changed": changed,
-            "unchanged": len(set(files) & set(parent_files)) - len(changed)}

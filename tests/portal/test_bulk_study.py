@@ -11,7 +11,7 @@ from django.db.models import Count
 from django.urls import reverse
 
 from portal.datasets.models import Block, DatasetVersion, Recording, Upload, UploadState
-from portal.demo.bulk import PASSWORD, VERDICT_SHARES, BulkStudyError, _scores, make_study
+from portal.demo.bulk import PASSWORD, VERDICT_SHARES, BulkStudyError, make_study
 from portal.quality.models import ChannelOverride, QCRound, QCRun
 from portal.quality.services import runs_of
 
@@ -130,24 +130,72 @@ def test_generated_pages_render_for_the_study_lead(client):
         assert client.get(url).status_code == 200, url
 
 
-def test_scores_from_a_confusion_match_the_learning_metrics():
-    """source: scikit-learn's metrics, through cairn_science.learning.metrics.scores."""
-    from cairn_science.learning.metrics import scores
+def test_generated_quality_results_have_the_shape_of_a_real_run():
+    """Plumbing: a generated result has the keys the quality job stores (a real run of
+    cairn_science.qc.run_qc_array on invented noise, plus the sensor positions the job adds),
+    and its verdict is the one the checks' rule gives from its stored inputs."""
+    from cairn_science.qc import run_qc_array
+    from cairn_science.qc.settings import QCSettings
+    from cairn_science.qc.verdict import effective_verdict
 
-    labels = ["low", "moderate", "high"]
+    made = make_study(12, n_sites=2, slug="shape-qc", seed=3)
+    names = ["Fp1", "Fp2", "F3", "F4", "C3", "C4", "P3", "P4", "O1", "O2", "Fz", "Cz", "Pz"]
+    noise = np.random.default_rng(0).normal(0.0, 10e-6, (len(names), 250 * 70))
+    real = run_qc_array(noise, sfreq_hz=250.0, ch_names=names).as_dict()
+    real_channel = next(iter(real["channels"].values()))
+    runs = QCRun.objects.filter(site__in=made["sites"])
+    assert runs.count() == 12
+    for run in runs:
+        got = run.result
+        assert set(got) == set(real) | {"positions", "generated"}
+        for key in ("verdict_inputs", "psd", "blinks"):
+            assert set(got[key]) == set(real[key]), key
+        assert got["psd"]["freqs_hz"] and set(got["psd"]["channels"]) == set(got["channels"])
+        for info in got["channels"].values():
+            assert set(info) == set(real_channel)
+            assert set(info["metrics"]) == set(real_channel["metrics"])
+            for reason in info["reasons"]:
+                assert set(reason) == {"check", "words", "value", "threshold"}
+        again = effective_verdict(got, {}, settings=QCSettings.from_stored(run.settings))
+        assert again["verdict"] == run.verdict == got["verdict"]
+        assert again["bad_channels"] == got["bad_channels"]
+
+
+def test_generated_training_scores_have_the_shape_of_a_real_run():
+    """Plumbing: fold results and pooled model results carry the keys that
+    cairn_science.learning.run's fold_result and pooled give for a real (tiny) fit."""
+    from cairn_science.learning.run import Data, fold_result, pooled
+    from cairn_science.learning.spec import TrainingSpec
+    from cairn_science.learning.validation import Fold
+
     rng = np.random.default_rng(0)
-    confusion = rng.integers(0, 40, size=(3, 3))
-    confusion[1] = 0  # a class without true rows, predicted now and then
-    confusion[0, 1] = 7
-    truth = np.repeat(np.repeat(labels, 3), confusion.ravel())
-    predicted = np.repeat(np.tile(labels, 3), confusion.ravel())
-    expected = scores(truth, predicted, labels=labels)
-    got = _scores(confusion, labels)
-    assert got["confusion"] == expected["confusion"]
-    assert got["support"] == expected["support"] and got["n"] == expected["n"]
-    for key in ("accuracy", "balanced_accuracy", "macro_f1", "kappa"):
-        assert got[key] == pytest.approx(expected[key]), key
-    assert got["recall"] == pytest.approx(expected["recall"])
+    n = 40
+    y = np.array(["low", "high"] * (n // 2))
+    people = np.repeat([f"s{i % 2}/p{i}" for i in range(8)], n // 8)
+    data = Data(X=rng.normal(size=(n, 3)), y=y, labels=["low", "high"], participants=people,
+                sites=np.array([p.split("/")[0] for p in people]), blocks=np.arange(n),
+                order=np.zeros(n), columns=["a", "b", "c"], rows=np.arange(n), excluded={})
+    model = TrainingSpec.from_dict({"feature_set": 1, "label": {"kind": "level"},
+                                    "models": [{"learner": "lda"}]}).models[0]
+    half = np.arange(n) < n // 2  # participants p0-p3, then p4-p7
+    folds = [Fold(index=k, repeat=0, train=np.flatnonzero(half != bool(k)),
+                  test=np.flatnonzero(half == bool(k)), held_out=()) for k in (0, 1)]
+    real_folds = [fold_result(model, data, fold, seed=0) for fold in folds]
+    real_pooled = pooled(real_folds, data)
+
+    made = make_study(24, n_sites=2, slug="shape-training", seed=4)
+    for run in made["study"].training_runs.all():
+        for score in run.folds.all():
+            assert set(score.result) == set(real_folds[0]) | {"generated"}
+            assert set(score.result["scores"]) == set(real_folds[0]["scores"])
+        for result in run.results["models"].values():
+            assert set(result) == set(real_pooled) | {"fold_scores"}
+            for key in ("pooled", "ci", "chance"):
+                assert set(result[key]) == set(real_pooled[key]), key
+        assert {"selection", "permutation", "paired"} <= set(run.results["statistics"])
+        release = run.releases.get()
+        assert release.scores["evaluation"] == "pooled"
+        assert release.scores["per_fold"] == run.results["models"][release.model]["per_fold"]
 
 
 def test_command_prints_counts_and_refuses_a_taken_slug():
