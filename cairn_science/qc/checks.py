@@ -528,8 +528,13 @@ def check_predictability(data, *, sfreq_hz, unit_positions, predictors, window_s
         stop = min(n_windows, start + block)
         actual_pool = frames[pool, start:stop].reshape(pool.size, -1).astype(np.float32)
         predicted = (actual_pool.T @ weights_t).reshape(-1, targets.size, n_subsets)
-        predicted.partition(middle, axis=-1)
-        median = 0.5 * (predicted[..., middle[0]] + predicted[..., middle[1]])
+        # one selection (the upper middle) and the largest value below it: the same two
+        # middle values as partitioning at both, at about a quarter of numpy's cost
+        predicted.partition(middle[1], axis=-1)
+        if middle[0] == middle[1]:
+            median = predicted[..., middle[1]]
+        else:
+            median = 0.5 * (predicted[..., : middle[1]].max(axis=-1) + predicted[..., middle[1]])
         median = median.T.reshape(targets.size, stop - start, -1).astype(float)
         actual = frames[targets, start:stop]
         actual = actual - actual.mean(axis=-1, keepdims=True)
