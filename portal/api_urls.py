@@ -15,6 +15,7 @@ urlpatterns = [
     path("uploads/<int:upload_id>/", api.upload_status, name="upload"),
     path("uploads/<int:upload_id>/chunks/", api.upload_chunk, name="upload_chunk"),
     path("uploads/<int:upload_id>/finish/", api.finish_upload, name="upload_finish"),
+    path("uploads/<int:upload_id>/confirm/", api.confirm_upload, name="upload_confirm"),
     path("training/", training_api.create_run, name="training"),
     path("training/<int:training_id>/", training_api.run_status, name="training_run"),
 ]

@@ -10,8 +10,11 @@ from portal.datasets.access import may_upload, upload_studies, visible_upload
 from portal.datasets.models import UploadState
 from portal.datasets.services import (
     UploadError,
+    cancel_held,
+    confirm_removals,
     finish_chunked,
     missing_ranges,
+    removal_words,
     start_chunked,
     write_chunk,
 )
@@ -30,6 +33,13 @@ def _json_body(request):
     if not isinstance(data, dict):
         raise UploadError("the request body must be a JSON object", field="body")
     return data
+
+
+def _flag(data, key, default):
+    value = data.get(key, default)
+    if not isinstance(value, bool):
+        raise UploadError(f"{key} must be true or false, got {value!r}", field=key)
+    return value
 
 
 def _own_upload(request, upload_id):
@@ -56,6 +66,18 @@ def upload_json(upload):
                    missing=missing_ranges(upload))
     if upload.state == UploadState.FAILED:
         out.update(failure=upload.failure, next_step=upload.next_step)
+    out["allow_removals"] = upload.allow_removals
+    if upload.state == UploadState.HELD:
+        removals = upload.pending_removals
+        out["needs_confirmation"] = {
+            "message": f"this snapshot would remove {removal_words(removals)}; nothing has "
+                       "changed yet. POST {\"allow_removals\": true} to "
+                       f"/api/uploads/{upload.pk}/confirm/ to go on, or "
+                       "{\"allow_removals\": false} to cancel",
+            "files": removals["files"], "first_paths": removals["first_paths"],
+            "participants": removals["participants"],
+            "dataset_version": removals["parent"],
+        }
     return out
 
 
@@ -81,7 +103,7 @@ def create_upload(request):
         upload = start_chunked(
             site=site, study=study, user=request.user, mode=data.get("mode", "snapshot"),
             label=str(data.get("filename", "upload")), expected_bytes=data.get("size"),
-            token=request.api_token,
+            token=request.api_token, allow_removals=_flag(data, "allow_removals", False),
         )
     except UploadError as exc:
         return _error(exc)
@@ -131,3 +153,23 @@ def finish_upload(request, upload_id):
         return _error(exc, status=409 if exc.field == "state" else 400)
     status = 422 if upload.state == UploadState.REJECTED else 202
     return JsonResponse(upload_json(upload), status=status)
+
+
+@access("checked")
+@require_http_methods(["POST"])
+def confirm_upload(request, upload_id):
+    """POST {"allow_removals": true} to let a held upload remove what it named (it is checked
+    again and becomes a version), or {"allow_removals": false} to cancel it."""
+    upload, refusal = _own_upload(request, upload_id)
+    if refusal:
+        return refusal
+    try:
+        data = _json_body(request)
+        if "allow_removals" not in data:
+            raise UploadError('send {"allow_removals": true} to confirm the removals or '
+                              'false to cancel the upload', field="allow_removals")
+        act = confirm_removals if _flag(data, "allow_removals", None) else cancel_held
+        upload = act(upload.pk, user=request.user, token=request.api_token)
+    except UploadError as exc:
+        return _error(exc, status=409 if exc.field == "state" else 400)
+    return JsonResponse(upload_json(upload), status=202 if upload.allow_removals else 200)

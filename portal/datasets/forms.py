@@ -2,14 +2,22 @@ from django import forms
 
 from portal.datasets.models import UploadMode
 
+#: One line each on what the two kinds of upload do, shown beside the choice.
+MODE_CHOICES = [
+    (UploadMode.ADDITION, "Add to the dataset: new or corrected files are added to the latest "
+                          "version; nothing already stored is removed."),
+    (UploadMode.SNAPSHOT, "Replace the whole dataset: files and participants not in this upload "
+                          "leave the new version (you are shown what and asked to confirm)."),
+]
+
 
 class UploadForm(forms.Form):
-    """What accompanies the files: the study and whether they replace or add to the dataset."""
+    """What accompanies the files: the study and whether they add to or replace the dataset."""
 
     study = forms.ChoiceField(label="Study")
     mode = forms.ChoiceField(
-        choices=UploadMode.choices, initial=UploadMode.SNAPSHOT, widget=forms.RadioSelect,
-        label="These files are",
+        choices=MODE_CHOICES, initial=UploadMode.ADDITION, widget=forms.RadioSelect,
+        label="What these files are",
     )
 
     def __init__(self, *args, studies, **kwargs):

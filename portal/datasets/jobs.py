@@ -28,7 +28,10 @@ from portal.datasets.models import (
 from portal.datasets.services import (
     discard_staging_on_commit,
     finish_upload,
+    hold_for_confirmation,
     mark_validating,
+    pending_removals,
+    snapshot_hints,
     staging_path,
     temporary_dir,
 )
@@ -101,8 +104,14 @@ def validate_upload(ctx):
             f"while {exc.what}); no dataset version was written. Ask an operator to free space "
             "on the server, then send the dataset again"
         ) from exc
+    if files is None and result.get("removals"):
+        with ctx.finish() as job:
+            hold_for_confirmation(upload, result["removals"], result["warnings"])
+            job.result = {"held": True, "removals": result["removals"]["files"]}
+        return None
     if files is None:
-        return _reject(ctx, upload, result["errors"], result["warnings"])
+        return _reject(ctx, upload, snapshot_hints(upload, parent, result["errors"]),
+                       result["warnings"])
     parent_files = {f.path: (f.sha256, f.bytes) for f in parent.files.all()} if parent else {}
     _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result)
 
@@ -149,6 +158,15 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
         result = report.as_dict()
         if not report.ok:
             return None, {}, [], result
+        confirmed_on = (upload.pending_removals or {}).get("parent")
+        if not upload.allow_removals or (confirmed_on and parent is not None
+                                         and confirmed_on != parent.pk):
+            # A snapshot that drops anything waits for a yes; a yes given about another
+            # version than the latest is asked again.
+            removals = pending_removals(parent, list_files(root),
+                                        {info["participant"] for info in result["recordings"]})
+            if removals:
+                return None, {}, [], dict(result, removals=removals)
         originals = {}
         scrubbed = []
         if protocol.get("deidentification") == "scrub":

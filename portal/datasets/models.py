@@ -6,14 +6,15 @@ from django.utils import timezone
 
 
 class UploadMode(models.TextChoices):
-    SNAPSHOT = "snapshot", "full snapshot of the site's dataset"
-    ADDITION = "addition", "addition to the latest version"
+    SNAPSHOT = "snapshot", "the whole dataset (replaces the latest version)"
+    ADDITION = "addition", "added to the latest version"
 
 
 class UploadState(models.TextChoices):
     RECEIVING = "receiving", "receiving files"
     QUEUED = "queued", "waiting for validation"
     VALIDATING = "validating", "validating"
+    HELD = "held", "waiting for confirmation of removals"
     ACCEPTED = "accepted", "accepted"
     REJECTED = "rejected", "rejected"
     FAILED = "failed", "failed"
@@ -46,6 +47,16 @@ class Upload(models.Model):
     )
     errors = models.JSONField(default=list, blank=True)
     warnings = models.JSONField(default=list, blank=True)
+    allow_removals = models.BooleanField(
+        default=False,
+        help_text="The sender confirmed that this snapshot may remove files or participants "
+                  "of the latest version.",
+    )
+    pending_removals = models.JSONField(
+        default=dict, blank=True,
+        help_text="What the upload would remove (state held): counts, first paths, "
+                  "participants and the version it was compared with.",
+    )
     failure = models.TextField(
         blank=True, help_text="Why the upload could not be checked (state failed)."
     )

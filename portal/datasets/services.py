@@ -7,6 +7,7 @@ content-addressed blobs, a rejected upload keeps only its report.
 
 import hashlib
 import os
+import re
 import tarfile
 import tempfile
 import uuid
@@ -76,12 +77,8 @@ def _check_target(user, site, study, mode):
     if mode not in UploadMode.values:
         raise UploadError(f"mode must be one of {', '.join(UploadMode.values)}, got {mode!r}",
                           field="mode")
-    if mode == UploadMode.ADDITION and not DatasetVersion.objects.filter(
-            site=site, study=study).exists():
-        raise UploadError(
-            f"site {site.slug} has no dataset version in {study.slug} to add to yet: send a "
-            "full snapshot first", field="mode",
-        )
+    # An addition to a site with no version yet is its first version: nothing to add to, and
+    # nothing to remove either, so it is taken as it is.
 
 
 def _queue(upload, *, user, token, via):
@@ -93,7 +90,8 @@ def _queue(upload, *, user, token, via):
         record(
             "upload.received", actor=user, token=token, site=upload.site, study=upload.study,
             target=upload, summary=f"{upload.label} ({upload.archive_bytes} bytes) received "
-            f"via {via}", params={"mode": upload.mode, "via": via},
+            f"via {via}", params={"mode": upload.mode, "via": via,
+                                  "allow_removals": upload.allow_removals},
             inputs=[{"name": upload.label, "sha256": upload.archive_sha256,
                      "bytes": upload.archive_bytes}],
         )
@@ -103,7 +101,7 @@ def _queue(upload, *, user, token, via):
 
 
 def submit_path(source, *, site, study, user, mode=UploadMode.SNAPSHOT, via="command",
-                token=None):
+                token=None, allow_removals=False):
     """Stage a folder or a .zip/.tar(.gz) file and queue its validation. Returns the Upload."""
     source = Path(source)
     _check_target(user, site, study, mode)
@@ -132,12 +130,14 @@ def submit_path(source, *, site, study, user, mode=UploadMode.SNAPSHOT, via="com
         site=site, study=study, mode=mode, source=via, label=source.name or str(source),
         staging_name=name, archive_sha256=sink.digest.hexdigest(), archive_bytes=sink.size,
         expected_bytes=sink.size, received=[[0, sink.size]], created_by=user,
+        allow_removals=bool(allow_removals),
     )
     upload.save()
     return _queue(upload, user=user, token=token, via=via)
 
 
-def submit_staged(staged, *, label, sha256, size, site, study, user, mode, via, token=None):
+def submit_staged(staged, *, label, sha256, size, site, study, user, mode, via, token=None,
+                  allow_removals=False):
     """Queue an archive that already sits in staging (written and hashed by the web form)."""
     _check_target(user, site, study, mode)
     staged = Path(staged)
@@ -146,7 +146,7 @@ def submit_staged(staged, *, label, sha256, size, site, study, user, mode, via, 
     upload = Upload(
         site=site, study=study, mode=mode, source=via, label=label, staging_name=staged.name,
         archive_sha256=sha256, archive_bytes=size, expected_bytes=size, received=[[0, size]],
-        created_by=user,
+        created_by=user, allow_removals=bool(allow_removals),
     )
     upload.save()
     return _queue(upload, user=user, token=token, via=via)
@@ -196,7 +196,8 @@ def pack_staged_files(pieces):
 # --- resumable uploads in chunks (the API) -------------------------------------------------
 
 #: Upload states whose archive still sits in staging and counts against the site's quota.
-STAGED_STATES = (UploadState.RECEIVING, UploadState.QUEUED, UploadState.VALIDATING)
+STAGED_STATES = (UploadState.RECEIVING, UploadState.QUEUED, UploadState.VALIDATING,
+                 UploadState.HELD)
 
 def staged_bytes(site):
     """Bytes of ``site``'s uploads still in staging: announced sizes of those receiving,
@@ -209,7 +210,8 @@ def staged_bytes(site):
     return total
 
 
-def start_chunked(*, site, study, user, mode, label, expected_bytes, token=None):
+def start_chunked(*, site, study, user, mode, label, expected_bytes, token=None,
+                  allow_removals=False):
     """Open an upload that will arrive in chunks; returns the Upload in state 'receiving'."""
     _check_target(user, site, study, mode)
     if isinstance(expected_bytes, bool) or not isinstance(expected_bytes, int) \
@@ -235,10 +237,12 @@ def start_chunked(*, site, study, user, mode, label, expected_bytes, token=None)
         upload = Upload.objects.create(
             site=site, study=study, mode=mode, source="api", label=label[:200],
             staging_name=name, expected_bytes=expected_bytes, created_by=user,
+            allow_removals=bool(allow_removals),
         )
         record("upload.started", actor=user, token=token, site=site, study=study,
                target=upload, summary=f"{label} ({expected_bytes} bytes) announced",
-               params={"mode": mode, "expected_bytes": expected_bytes})
+               params={"mode": mode, "expected_bytes": expected_bytes,
+                       "allow_removals": bool(allow_removals)})
         (staging_root() / name).touch()
     return upload
 
@@ -467,3 +471,225 @@ def expire_abandoned(now=None, *, dry_run=False):
             )
             discard_staging_on_commit(upload)
     return ended
+
+
+# --- removals need a confirmation; earlier versions can be restored -------------------------
+
+#: How many removed paths a "needs confirmation" report names.
+FIRST_PATHS = 20
+
+
+def _participants_of(version):
+    if version is None:
+        return set()
+    return set(version.recordings.values_list("participant__label", flat=True).distinct())
+
+
+def pending_removals(parent, paths, participants):
+    """What making a version of ``paths`` (with recordings of ``participants``) would remove
+    from ``parent``, or None when it removes nothing."""
+    if parent is None:
+        return None
+    removed = sorted(set(parent.files.values_list("path", flat=True)) - set(paths))
+    gone = sorted(_participants_of(parent) - set(participants))
+    if not removed and not gone:
+        return None
+    return {
+        "files": len(removed), "first_paths": removed[:FIRST_PATHS],
+        "participants": gone,
+        "parent": parent.pk, "parent_number": parent.number,
+        "parent_manifest_sha256": parent.manifest_sha256,
+    }
+
+
+def removal_words(removals):
+    """One sentence on what would be removed, for pages, errors and the command."""
+    people = removals.get("participants") or []
+    text = (f"{removals['files']} file{'s' if removals['files'] != 1 else ''} of version "
+            f"{removals['parent_number']}")
+    if people:
+        shown = ", ".join(f"sub-{p}" for p in people[:10])
+        more = f" and {len(people) - 10} more" if len(people) > 10 else ""
+        text += (f" and {len(people)} participant{'s' if len(people) != 1 else ''} "
+                 f"({shown}{more})")
+    return text
+
+
+def hold_for_confirmation(upload, removals, warnings):
+    """The validation found that ``upload`` (a snapshot sent without allow_removals) would
+    remove files or participants: it waits in state held, its archive kept in staging, and no
+    version is written. Call inside the transaction that finishes the validation job."""
+    upload.state = UploadState.HELD
+    upload.pending_removals = removals
+    upload.allow_removals = False
+    upload.warnings = warnings
+    upload.errors = []
+    upload.save(update_fields=["state", "pending_removals", "allow_removals", "warnings",
+                               "errors"])
+    record("upload.held", target=upload, site=upload.site, study=upload.study, worker=True,
+           summary=f"upload {upload.pk} would remove {removal_words(removals)}; "
+                   "waiting for confirmation",
+           inputs=[{"upload": upload.pk, "sha256": upload.archive_sha256},
+                   {"dataset_version": removals["parent"],
+                    "manifest_sha256": removals["parent_manifest_sha256"]}],
+           params={"files": removals["files"], "participants": removals["participants"],
+                   "first_paths": removals["first_paths"]})
+
+
+def _held(upload_id):
+    upload = Upload.objects.select_for_update().select_related("site", "study").get(
+        pk=upload_id)
+    if upload.state != UploadState.HELD:
+        raise UploadError(f"upload {upload.pk} is {upload.get_state_display()}, not waiting "
+                          "for a confirmation", field="state")
+    return upload
+
+
+def confirm_removals(upload_id, *, user, token=None):
+    """The sender confirms the removals a held upload would make: it is validated again
+    (against the latest version at that moment) and becomes a version if it still passes."""
+    with transaction.atomic():
+        upload = _held(upload_id)
+        require(user, Action.UPLOAD, site=upload.site, study=upload.study)
+        removals = upload.pending_removals
+        upload.allow_removals = True
+        upload.state = UploadState.QUEUED
+        upload.save(update_fields=["allow_removals", "state"])
+        record("upload.removals_confirmed", actor=user, token=token, target=upload,
+               site=upload.site, study=upload.study,
+               summary=f"removal of {removal_words(removals)} confirmed for upload "
+                       f"{upload.pk}",
+               params={"files": removals.get("files"),
+                       "participants": removals.get("participants")},
+               inputs=[{"upload": upload.pk, "sha256": upload.archive_sha256}])
+        enqueue("upload.validate", target=upload, site=upload.site, study=upload.study,
+                created_by=user)
+    return upload
+
+
+def cancel_held(upload_id, *, user, token=None):
+    """The sender does not want the removals: the held upload ends rejected, nothing stored
+    changes and its archive leaves staging."""
+    with transaction.atomic():
+        upload = _held(upload_id)
+        require(user, Action.UPLOAD, site=upload.site, study=upload.study)
+        upload.state = UploadState.REJECTED
+        upload.finished_at = timezone.now()
+        upload.errors = [{
+            "path": upload.label, "line": None, "field": "allow_removals",
+            "message": f"cancelled by {user.get_username()} instead of removing "
+                       f"{removal_words(upload.pending_removals)}; nothing was changed. To "
+                       "add to the dataset, send the new files as an addition",
+        }]
+        upload.save(update_fields=["state", "finished_at", "errors"])
+        record("upload.cancelled", actor=user, token=token, target=upload, site=upload.site,
+               study=upload.study, summary=f"upload {upload.pk} cancelled before its removals",
+               inputs=[{"upload": upload.pk, "sha256": upload.archive_sha256}])
+        discard_staging_on_commit(upload)
+    return upload
+
+
+def snapshot_hints(upload, parent, errors):
+    """Errors of a snapshot that leaves out participants of ``parent`` say what to do
+    instead of removing rows: send the files as an addition, which removes nobody."""
+    if upload.mode != UploadMode.SNAPSHOT or parent is None:
+        return errors
+    known = _participants_of(parent)
+    out = []
+    for problem in errors:
+        if problem.get("code") in ("participants.extra_subject",
+                                   "ratings.unknown_participant"):
+            found = re.search(r"sub-([A-Za-z0-9]+)", problem["message"])
+            if found and found.group(1) in known:
+                label = found.group(1)
+                problem = dict(problem, message=(
+                    f"sub-{label} is in version {parent.number} but this upload has no "
+                    f"sub-{label}/ folder. It was sent as the whole dataset, which would "
+                    f"remove sub-{label}: to add new data and keep everyone, send the same "
+                    "files again as an addition (\"added to the latest version\"; "
+                    "upload_bids --mode addition; API \"mode\": \"addition\"). Remove this "
+                    f"row only if sub-{label} should leave the dataset"))
+        out.append(problem)
+    return out
+
+
+def restore_version(source, *, user, token=None, allow_removals=False):
+    """Make a new version of ``source``'s (site, study) holding exactly ``source``'s files and
+    recordings. Nothing is copied but rows: the files' blobs are shared. Removing anything the
+    latest version holds needs ``allow_removals``. Returns the new DatasetVersion."""
+    from django.db.models import Max
+
+    from portal.datasets.jobs import _diff
+    from portal.datasets.models import Block, Recording, VersionFile
+    from portal.quality.services import start_round
+
+    require(user, Action.UPLOAD, site=source.site, study=source.study)
+    with transaction.atomic():
+        Site.objects.select_for_update().filter(pk=source.site_id).first()
+        latest = (DatasetVersion.objects.filter(site=source.site_id, study=source.study_id)
+                  .order_by("-number").first())
+        if latest.pk == source.pk:
+            raise UploadError(f"version {source.number} is already the latest", field="version")
+        files = {f.path: (f.sha256, f.bytes, f.original_sha256) for f in source.files.all()}
+        if latest.manifest_sha256 == source.manifest_sha256:
+            raise UploadError(f"the latest version ({latest.number}) already holds exactly the "
+                              f"files of version {source.number}", field="version")
+        recordings = list(source.recordings.select_related("participant")
+                          .prefetch_related("blocks"))
+        removals = pending_removals(latest, files, {r.participant.label for r in recordings})
+        if removals and not allow_removals:
+            raise UploadError(
+                f"restoring version {source.number} would remove {removal_words(removals)} "
+                f"(first: {', '.join(removals['first_paths'][:5])}); confirm to go on "
+                "(--allow-removals)", field="allow_removals")
+        latest_files = {f.path: (f.sha256, f.bytes) for f in latest.files.all()}
+        diff = _diff(latest_files, {p: (sha, size) for p, (sha, size, _) in files.items()})
+        number = (DatasetVersion.objects.filter(site=source.site_id, study=source.study_id)
+                  .aggregate(n=Max("number"))["n"] or 0) + 1
+        now = timezone.now()
+        upload = Upload.objects.create(
+            site=source.site, study=source.study, mode=UploadMode.SNAPSHOT, source="restore",
+            label=f"restore of version {source.number}", state=UploadState.ACCEPTED,
+            created_by=user, finished_at=now, allow_removals=bool(removals),
+        )
+        version = DatasetVersion.objects.create(
+            site=source.site, study=source.study, number=number, upload=upload, parent=latest,
+            manifest_sha256=source.manifest_sha256, diff=diff, n_files=source.n_files,
+            total_bytes=source.total_bytes,
+        )
+        VersionFile.objects.bulk_create([
+            VersionFile(version=version, path=path, sha256=sha, bytes=size,
+                        original_sha256=original)
+            for path, (sha, size, original) in sorted(files.items())
+        ])
+        copies = Recording.objects.bulk_create([
+            Recording(version=version, participant=r.participant, path=r.path, sha256=r.sha256,
+                      session=r.session, task=r.task, acquisition=r.acquisition, run=r.run,
+                      sfreq_hz=r.sfreq_hz, n_channels=r.n_channels,
+                      channel_names=r.channel_names, duration_s=r.duration_s,
+                      power_line_hz=r.power_line_hz)
+            for r in recordings
+        ])
+        Block.objects.bulk_create([
+            Block(recording=copy, onset_s=b.onset_s, duration_s=b.duration_s,
+                  condition=b.condition, rating=b.rating, level=b.level)
+            for r, copy in zip(recordings, copies, strict=True) for b in r.blocks.all()
+        ])
+        counts = {k: len(v) if isinstance(v, list) else v for k, v in diff.items()}
+        record(
+            "dataset_version.restored", actor=user, token=token, target=version,
+            site=source.site, study=source.study,
+            summary=f"{source.site.slug} version {number} restores version {source.number} "
+                    f"(+{counts['added']} −{counts['removed']} ~{counts['changed']} against "
+                    f"version {latest.number})",
+            inputs=[{"dataset_version": source.pk, "number": source.number,
+                     "manifest_sha256": source.manifest_sha256},
+                    {"dataset_version": latest.pk, "number": latest.number,
+                     "manifest_sha256": latest.manifest_sha256}],
+            outputs=[{"dataset_version": version.pk, "number": number,
+                      "manifest_sha256": version.manifest_sha256}],
+            params={"restored_from": source.number, "replaced": latest.number,
+                    "diff": counts, "removals_confirmed": bool(removals)},
+        )
+        start_round(version, user=user)
+    return version

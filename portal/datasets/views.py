@@ -2,28 +2,36 @@
 
 from pathlib import Path
 
+from django.contrib import messages
 from django.core.exceptions import PermissionDenied
 from django.core.paginator import Paginator
 from django.http import FileResponse, JsonResponse, StreamingHttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.views.decorators.csrf import csrf_exempt
+from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, get_visible_site, require
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.datasets.access import (
     may_download_version,
+    may_upload,
     upload_studies,
     visible_upload,
     visible_version,
 )
 from portal.datasets.downloads import stream_version_zip
 from portal.datasets.forms import UploadForm
-from portal.datasets.models import UploadState, VersionFile
+from portal.datasets.models import DatasetVersion, UploadState, VersionFile
 from portal.datasets.services import (
     UploadError,
+    cancel_held,
+    confirm_removals,
     pack_staged_files,
+    pending_removals,
+    removal_words,
+    restore_version,
     safe_relative_path,
     submit_staged,
 )
@@ -51,7 +59,38 @@ def upload_status(request, upload_id):
 def _upload_context(user, upload_id):
     upload = visible_upload(user, upload_id)
     version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
-    return {"upload": upload, "job": upload_job(upload), "version": version}
+    held = upload.state == UploadState.HELD
+    return {"upload": upload, "job": upload_job(upload), "version": version,
+            "removals": upload.pending_removals if held else None,
+            "removal_words": removal_words(upload.pending_removals) if held else "",
+            "may_confirm": held and may_upload(user, upload.site, upload.study)}
+
+
+@access("checked")
+@require_POST
+def upload_confirm(request, upload_id):
+    """The sender's yes to the removals a held upload would make: it is checked again and
+    becomes a version."""
+    upload = visible_upload(request.user, upload_id)
+    require(request.user, Action.UPLOAD, site=upload.site, study=upload.study)
+    try:
+        confirm_removals(upload.pk, user=request.user)
+    except UploadError as exc:
+        messages.error(request, str(exc))
+    return redirect("datasets:upload", upload.pk)
+
+
+@access("checked")
+@require_POST
+def upload_cancel(request, upload_id):
+    """The sender's no: the held upload ends rejected and nothing stored changes."""
+    upload = visible_upload(request.user, upload_id)
+    require(request.user, Action.UPLOAD, site=upload.site, study=upload.study)
+    try:
+        cancel_held(upload.pk, user=request.user)
+    except UploadError as exc:
+        messages.error(request, str(exc))
+    return redirect("datasets:upload", upload.pk)
 
 
 @access("checked")
@@ -143,7 +182,48 @@ def version_detail(request, version_id):
         "participants": version.recordings.values("participant__label").distinct().count(),
         "files": version.files.all()[:200],
         "may_download": may_download_version(request.user, version),
+        "may_restore": may_upload(request.user, version.site, version.study),
+        "is_latest": not DatasetVersion.objects.filter(
+            site=version.site_id, study=version.study_id, number__gt=version.number).exists(),
     })
+
+
+def _restore_preview(version):
+    """(latest version, its diff to ``version``'s files, what restoring would remove)."""
+    from portal.datasets.jobs import _diff
+
+    latest = (DatasetVersion.objects.filter(site=version.site_id, study=version.study_id)
+              .order_by("-number").first())
+    if latest.pk == version.pk:
+        return latest, None, None
+    files = {f.path: (f.sha256, f.bytes) for f in version.files.all()}
+    diff = _diff({f.path: (f.sha256, f.bytes) for f in latest.files.all()}, files)
+    people = set(version.recordings.values_list("participant__label", flat=True))
+    return latest, diff, pending_removals(latest, files, people)
+
+
+@access("checked")
+def version_restore(request, version_id):
+    """Make an earlier version the latest again, as a new version: the page shows what would
+    be added, changed and removed against the latest, and asks for a yes."""
+    version = visible_version(request.user, version_id)
+    require(request.user, Action.UPLOAD, site=version.site, study=version.study)
+    latest, diff, removals = _restore_preview(version)
+    error = ""
+    if request.method == "POST":
+        try:
+            restored = restore_version(version, user=request.user,
+                                       allow_removals=request.POST.get("allow_removals") == "1")
+        except UploadError as exc:
+            error = str(exc)
+        else:
+            messages.success(request, f"Version {restored.number} restores version "
+                                      f"{version.number}.")
+            return redirect("datasets:version", restored.pk)
+    return render(request, "datasets/restore.html", {
+        "version": version, "latest": latest, "diff": diff, "removals": removals,
+        "removal_words": removal_words(removals) if removals else "", "error": error,
+    }, status=400 if error else 200)
 
 
 @access("checked")

@@ -73,6 +73,9 @@ RULES = {
     "datasets:upload_new": Rule(need="upload", level="site"),
     "datasets:upload": Rule(),
     "datasets:upload_status": Rule(),
+    "datasets:upload_confirm": Rule(need="upload", method="post"),
+    "datasets:upload_cancel": Rule(need="upload", method="post"),
+    "datasets:restore": Rule(need="upload"),
     "datasets:version": Rule(),
     "datasets:download_version": Rule(need="download"),
     "datasets:download_file": Rule(need="download"),
@@ -115,6 +118,7 @@ RULES = {
     "api:upload": Rule(),
     "api:upload_chunk": Rule(need="upload", method="put"),
     "api:upload_finish": Rule(need="upload", method="post"),
+    "api:upload_confirm": Rule(need="upload", method="post"),
     "api:training": Rule(need="run", method="post", level="study"),
     "api:training_run": Rule(),
 }

@@ -43,9 +43,9 @@ def site_dataset(demo_small, tmp_path):
     return {"root": root, "site": site, "study": study, "user": manager, "info": info}
 
 
-def ingest(data, source, mode=UploadMode.SNAPSHOT):
+def ingest(data, source, mode=UploadMode.SNAPSHOT, allow_removals=False):
     upload = submit_path(source, site=data["site"], study=data["study"], user=data["user"],
-                         mode=mode)
+                         mode=mode, allow_removals=allow_removals)
     job = Job.objects.get(target_id=str(upload.pk), kind="upload.validate")
     runner.run(job.pk)
     upload.refresh_from_db()
@@ -67,7 +67,7 @@ def test_snapshot_then_snapshot_gives_a_diff_by_hash(site_dataset):
     drop_subject(site_dataset["root"], "03")
     readme = site_dataset["root"] / "README"
     readme.write_text(readme.read_text() + "\nSecond delivery.\n")
-    second = ingest(site_dataset, site_dataset["root"])
+    second = ingest(site_dataset, site_dataset["root"], allow_removals=True)
     assert second.state == "accepted", second.errors
     v2 = second.version
     assert v2.number == 2 and v2.parent_id == v1.pk
@@ -91,15 +91,6 @@ def test_addition_adds_and_replaces_but_never_removes(site_dataset, tmp_path):
     assert version.diff["added"] == ["CHANGES"] and version.diff["changed"] == ["README"]
     assert version.diff["removed"] == []
     assert version.files.count() == version.parent.files.count() + 1
-
-
-def test_first_upload_cannot_be_an_addition(site_dataset):
-    from portal.datasets.services import UploadError
-
-    with pytest.raises(UploadError, match="send a full snapshot first"):
-        submit_path(site_dataset["root"], site=site_dataset["site"],
-                    study=site_dataset["study"], user=site_dataset["user"],
-                    mode=UploadMode.ADDITION)
 
 
 def test_crash_while_indexing_leaves_no_half_version(site_dataset, monkeypatch, settings):

@@ -6,25 +6,34 @@ from django.core.management.base import BaseCommand, CommandError
 
 from portal.accounts.setup import SetupError, get_site, get_study
 from portal.datasets.models import Upload, UploadMode, UploadState
-from portal.datasets.services import UploadError, submit_path
+from portal.datasets.services import UploadError, removal_words, submit_path
 
 
 class Command(BaseCommand):
     help = ("Submit a BIDS dataset (a folder, .zip or .tar(.gz)) for a site, through the same "
-            "path as the web upload. Exit status 0 when accepted, 1 when rejected, 2 when its "
-            "validation failed (the output says the next step).")
+            "path as the web upload. A snapshot (the whole dataset) that would remove files or "
+            "participants of the latest version waits for a confirmation unless "
+            "--allow-removals is given. Exit status 0 when accepted, 1 when rejected, 2 when "
+            "its validation failed (the output says the next step), 3 when it waits for the "
+            "confirmation of removals (nothing stored changed).")
 
     def add_arguments(self, parser):
         parser.add_argument("path")
         parser.add_argument("--site", required=True)
         parser.add_argument("--study", required=True)
-        parser.add_argument("--mode", choices=UploadMode.values, default=UploadMode.SNAPSHOT)
+        parser.add_argument("--mode", choices=UploadMode.values, default=UploadMode.SNAPSHOT,
+                            help="snapshot: the whole dataset (replaces the latest version); "
+                                 "addition: added to the latest version, removing nothing")
+        parser.add_argument("--allow-removals", action="store_true",
+                            help="let a snapshot remove files and participants the latest "
+                                 "version holds (without it such an upload waits, state held)")
         parser.add_argument("--as-user", help="submit as this user (default: an operator)")
         parser.add_argument("--wait", action="store_true", help="return when validation ended")
         parser.add_argument("--timeout-s", type=float, default=3600.0)
         parser.add_argument("--json", action="store_true", help="print one JSON object")
 
-    def handle(self, *args, path, site, study, mode, as_user, wait, timeout_s, **options):
+    def handle(self, *args, path, site, study, mode, as_user, wait, timeout_s, allow_removals,
+               **options):
         try:
             site_obj, study_obj = get_site(site), get_study(study)
         except SetupError as exc:
@@ -32,7 +41,7 @@ class Command(BaseCommand):
         user = self._user(as_user)
         try:
             upload = submit_path(path, site=site_obj, study=study_obj, user=user, mode=mode,
-                                   via="command")
+                                 via="command", allow_removals=allow_removals)
         except UploadError as exc:
             raise CommandError(str(exc)) from None
         if wait:
@@ -48,6 +57,8 @@ class Command(BaseCommand):
             raise SystemExit(1)
         if upload.state == UploadState.FAILED:
             raise SystemExit(2)
+        if upload.state == UploadState.HELD:
+            raise SystemExit(3)
 
     def _user(self, username):
         User = get_user_model()
@@ -73,6 +84,16 @@ class Command(BaseCommand):
             "failure": upload.failure or None,
             "next_step": upload.next_step or None,
         }
+        if upload.state == UploadState.HELD:
+            removals = upload.pending_removals
+            out["needs_confirmation"] = {
+                "message": f"this snapshot would remove {removal_words(removals)}; nothing "
+                           "has changed. Send it again with --allow-removals to go on, or "
+                           "with --mode addition to add without removing",
+                "files": removals["files"], "first_paths": removals["first_paths"],
+                "participants": removals["participants"],
+                "dataset_version": removals["parent"],
+            }
         if as_json:
             self.stdout.write(json.dumps(out, indent=2))
             return
@@ -80,6 +101,11 @@ class Command(BaseCommand):
         if upload.state == UploadState.FAILED:
             self.stdout.write(f"  failure   {upload.failure}")
             self.stdout.write(f"  next step {upload.next_step}")
+        if upload.state == UploadState.HELD:
+            held = out["needs_confirmation"]
+            self.stdout.write(f"  needs confirmation: {held['message']}")
+            for item in held["first_paths"][:10]:
+                self.stdout.write(f"  would remove {item}")
         for problem in upload.errors:
             self.stdout.write(f"  error   {_where(problem)}: {problem['message']}")
         for problem in upload.warnings:
