@@ -6,7 +6,13 @@ TEST_DATABASE_URL ?= postgres://postgres@127.0.0.1:5432/cairn
 TEST_BROKER_URL ?= redis://127.0.0.1:6379/15
 DEMO_SCALE ?= full
 
-.PHONY: demo test lint install services clean-demo
+.PHONY: demo test lint install services clean-demo unit fast
+
+# The developer loop (no services; neither changes `demo` or `test`):
+#   make unit   the science's tests without Django (pytest-django switched off), seconds to minutes
+#   make fast   unit + the portal's tests on the embedded SQLite, without the slow kinds
+#               (real workers, PostgreSQL/Redis, the browser, new virtual environments)
+FAST_MARKERS := not integration and not embedded and not browser and not venv
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -32,6 +38,12 @@ test: install services
 	DATABASE_URL=$(TEST_DATABASE_URL) CELERY_BROKER_URL=$(TEST_BROKER_URL) \
 	CAIRN_REQUIRE_SERVICES=1 CAIRN_VAR_DIR=$(CURDIR)/var/test \
 	$(BIN)/python -m pytest -q
+
+unit: install
+	$(BIN)/python -m pytest -q -p no:django tests/unit
+
+fast: install
+	DATABASE_URL= CELERY_BROKER_URL= $(BIN)/python -m pytest -q -m "$(FAST_MARKERS)" tests/unit tests/portal
 
 lint: install
 	$(BIN)/ruff check .
