@@ -16,6 +16,8 @@ import os
 import zipfile
 from pathlib import Path
 
+from cairn_science.bids.recording import read_recording
+
 FORMAT = "cairn-release-1"
 #: What the science package needs to load a release and predict (pyproject.toml's
 #: dependencies; a test keeps them equal). The archive pins these and what they pull in.
@@ -303,7 +305,6 @@ def features_for_recording(bids_file, spec, *, bad_channels=(), bad_segments=(),
     import mne_bids
     import pandas as pd
 
-    from cairn_science.bids.recording import read_recording
     from cairn_science.features.pipeline import recording_part
 
     root = mne_bids.get_bids_path_from_fname(bids_file).root

@@ -25,6 +25,8 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.random import sample_without_replacement
 from sklearn.utils.validation import check_is_fitted, has_fit_parameter, validate_data
 
+from .validation import inner_splits
+
 MAX_INT = np.iinfo(np.int32).max
 SAMPLE_BY = ("participant", "window")
 VOTING = ("soft", "hard")
@@ -429,8 +431,6 @@ class GroupCalibratedClassifier(ClassifierMixin, BaseEstimator):
 
     def fit(self, X, y, groups=None):
         from sklearn.calibration import CalibratedClassifierCV
-
-        from .validation import inner_splits
 
         name = type(self.estimator).__name__
         groups = _check_groups(groups, np.asarray(X).shape[0] if hasattr(X, "shape")

@@ -16,6 +16,7 @@ import numpy as np
 from cairn_science.features.pipeline import feature_columns
 
 from . import metrics, validation
+from .learners import LEARNERS, make_learner
 from .spec import select_columns
 
 LEVEL_ORDER = ("low", "moderate", "high")
@@ -253,7 +254,6 @@ def build_estimator(model, *, seed):
     from sklearn.preprocessing import StandardScaler
 
     from .ensembles import GroupBaggingClassifier, GroupStackingClassifier
-    from .learners import make_learner
     from .recurrent import confine_members
 
     if model.ensemble is None:
@@ -276,8 +276,6 @@ def build_estimator(model, *, seed):
 def needs_groups(model):
     """True when the model's fit takes the participant of each row: ensembles, and learners
     whose internal split (probability calibration) is grouped by participant."""
-    from .learners import LEARNERS
-
     return model.ensemble is not None or LEARNERS[model.learner].grouped
 
 
