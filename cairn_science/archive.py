@@ -4,6 +4,8 @@ Members are streamed in 1 MiB chunks into a temporary folder beside the destinat
 renamed into place only once the whole archive has passed; a refused archive leaves nothing.
 """
 
+from __future__ import annotations
+
 import gzip
 import lzma
 import os
@@ -18,6 +20,7 @@ import zlib
 from contextlib import contextmanager, nullcontext
 from dataclasses import dataclass
 from pathlib import Path
+from typing import BinaryIO
 
 CHUNK_BYTES = 1024 * 1024
 MAX_NAME_PART_BYTES = 255  # the longest file or folder name common file systems store
@@ -382,7 +385,9 @@ def _wrapping_folder(unpacked):
     return None
 
 
-def extract_archive(archive_path, destination, *, limits=ExtractLimits(), label=None):
+def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathLike, *,
+                    limits: ExtractLimits = ExtractLimits(),
+                    label: str | None = None) -> list[Path]:
     """Unpack a .zip, .tar or .tar.gz (told apart by content) into ``destination``, which must
     be absent or an empty folder; returns the unpacked file paths.
 
@@ -435,7 +440,7 @@ def _walk(folder, label, names, relative=""):
             yield from _walk(entry.path, label, names, name + "/")
 
 
-def pack_folder(folder, sink):
+def pack_folder(folder: str | os.PathLike, sink: BinaryIO) -> None:
     """Write ``folder`` to the binary file ``sink`` as an uncompressed tar stream.
 
     Names are sorted and times, owners and permissions fixed, so one folder always packs to the
@@ -457,7 +462,7 @@ def pack_folder(folder, sink):
                 tar.addfile(info, source)
 
 
-def list_files(root):
+def list_files(root: Path) -> list[str]:
     """Every file under ``root`` as a POSIX path relative to it, sorted."""
     root = Path(root)
     return sorted(

@@ -4,6 +4,8 @@ Environment variables must be set before numpy, scipy or numba are first importe
 threadpoolctl limit covers libraries already loaded.
 """
 
+from __future__ import annotations
+
 import os
 
 THREAD_VARIABLES = (
@@ -17,7 +19,7 @@ THREAD_VARIABLES = (
 )
 
 
-def worker_threads():
+def worker_threads() -> int:
     """Threads per worker process for numeric libraries (``CAIRN_WORKER_THREADS``, default 1)."""
     raw = os.environ.get("CAIRN_WORKER_THREADS", "1")
     try:
@@ -31,7 +33,7 @@ def worker_threads():
     return n
 
 
-def limit_numeric_threads(n_threads=None):
+def limit_numeric_threads(n_threads: int | None = None) -> int:
     """Set the thread count of BLAS, OpenMP and numba for this process; returns the count."""
     n = worker_threads() if n_threads is None else n_threads
     for name in THREAD_VARIABLES:
@@ -44,7 +46,7 @@ def limit_numeric_threads(n_threads=None):
     return n
 
 
-def thread_report():
+def thread_report() -> dict:
     """What each loaded thread pool is allowed, e.g. for a worker probe."""
     from threadpoolctl import threadpool_info
 

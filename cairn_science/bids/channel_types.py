@@ -6,10 +6,12 @@ EEG, since that name says where on the scalp it sits; any other is treated as MI
 out of EEG checks and features.
 """
 
+from __future__ import annotations
+
 MISSING = "n/a"
 
 
-def type_for_unknown(name):
+def type_for_unknown(name: str) -> str:
     """The type a channel of type n/a is treated as: "EEG" for a 10-20 electrode name (any
     case, classic or modern), else "MISC"."""
     from cairn_science.qc.positions import template_position

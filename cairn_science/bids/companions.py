@@ -12,6 +12,8 @@ Messages repeat only what the header says; they never tell whether a file outsid
 folder exists, nor anything about it.
 """
 
+from __future__ import annotations
+
 import configparser
 import os
 import re
@@ -45,7 +47,7 @@ class CompanionError(RefusedFile):
     """A header names a file outside its recording's folder; ``problems`` say where."""
 
 
-def brainvision_text(raw):
+def brainvision_text(raw: bytes) -> str:
     """A BrainVision header or marker file as text, decoded the way mne decodes it.
 
     mne reads the first line as ASCII and the rest in the ``Codepage=`` the file declares
@@ -212,7 +214,7 @@ def _brainvision_companions(root, relpath, *, marker):
     return found, problems
 
 
-def companion_files(root, relpath):
+def companion_files(root: str | os.PathLike, relpath: str) -> list[Companion]:
     """The files the header of data file ``relpath`` names, resolved inside its folder.
 
     Lists, for a BrainVision ``.vhdr``, its DataFile and MarkerFile lines and the DataFile

@@ -7,15 +7,24 @@ that hold names, birth dates or contact details. :func:`scrub_dataset` rewrites 
 in the files and keeps everything else byte for byte.
 """
 
+from __future__ import annotations
+
 import json
 import os
 import re
 from pathlib import Path
 
 from .companions import CompanionError, companion_files
-from .headers import HeaderError, read_edf_header, read_fixed_edf_header, read_vhdr
+from .headers import (
+    BrainVisionHeader,
+    EdfHeader,
+    HeaderError,
+    read_edf_header,
+    read_fixed_edf_header,
+    read_vhdr,
+)
 from .names import walk_dataset
-from .readers import read_json, read_tsv, split_tsv_line
+from .readers import Table, read_json, read_tsv, split_tsv_line
 from .report import Finding
 
 ANONYMOUS_PATIENT = "X X X X"
@@ -68,7 +77,7 @@ def _is_pseudonym(value, participant):
     return value in (participant, f"sub-{participant}") if participant else False
 
 
-def edf_findings(path, header, *, participant=""):
+def edf_findings(path: str, header: EdfHeader, *, participant: str = "") -> list[Finding]:
     """Findings in an EDF/BDF header (parsed with :func:`headers.read_edf_header`)."""
     findings = []
     patient = header.patient.split()
@@ -134,7 +143,7 @@ def _line_looks_identifying(text):
     return None
 
 
-def vhdr_findings(path, header):
+def vhdr_findings(path: str, header: BrainVisionHeader) -> list[Finding]:
     """Findings in the comment section of a BrainVision header."""
     findings = []
     for line, text in header.comment_lines:
@@ -148,7 +157,7 @@ def vhdr_findings(path, header):
 NEW_SEGMENT = re.compile(r"^Mk\d+=New Segment,[^,]*,[^,]*,[^,]*,[^,]*,(?P<date>\d{20})\s*$")
 
 
-def vmrk_findings(path, full_path):
+def vmrk_findings(path: str, full_path: str | os.PathLike) -> list[Finding]:
     """Measurement dates in the New Segment markers of a BrainVision marker file."""
     try:
         text = Path(full_path).read_bytes().decode("utf-8", errors="replace")
@@ -164,7 +173,7 @@ def vmrk_findings(path, full_path):
     return findings
 
 
-def header_files(root):
+def header_files(root: str | os.PathLike) -> list[str]:
     """Every EDF, BDF and BrainVision header of the upload, including folders and files the
     BIDS checks skip (sourcedata/, .bidsignore, hidden): they are stored all the same.
     Links are left out: they are never followed (validation refuses them)."""
@@ -178,7 +187,7 @@ def header_files(root):
     return sorted(found)
 
 
-def header_findings(root, relpath):
+def header_findings(root: str | os.PathLike, relpath: str) -> list[Finding]:
     """Findings in one EDF/BDF header, or in one BrainVision header and its marker file.
 
     Files too damaged to parse give none here; the structure checks report them.
@@ -226,7 +235,7 @@ def _value_kind(value):
     return None
 
 
-def identifier_columns(table):
+def identifier_columns(table: Table) -> dict[str, str]:
     """Columns of participants.tsv that look like direct identifiers: {column: reason}."""
     found = {}
     for column in table.columns:
@@ -248,14 +257,14 @@ def identifier_columns(table):
     return found
 
 
-def participants_findings(table):
+def participants_findings(table: Table) -> list[Finding]:
     return [
         Finding(table.path, "identifier", column, f"column {column!r}: {reason}", 1)
         for column, reason in identifier_columns(table).items()
     ]
 
 
-def table_date_findings(table):
+def table_date_findings(table: Table) -> list[Finding]:
     """Measurement dates in ``acq_time`` of a scans.tsv or sessions.tsv (one per table)."""
     findings = []
     for column in MEASUREMENT_DATE_COLUMNS:
@@ -285,7 +294,8 @@ def _edf_date_words(header):
         return "X"
 
 
-def scrub_edf(full_path, *, keep_dates=True):
+def scrub_edf(full_path: str | os.PathLike, *,
+              keep_dates: bool = True) -> dict[str, tuple[str, str]]:
     """Rewrite an EDF/BDF header's patient and recording fields in place; returns the
     changes as ``{field: (before, after)}``."""
     header = read_edf_header(full_path)
@@ -315,7 +325,8 @@ def scrub_edf(full_path, *, keep_dates=True):
     return changes
 
 
-def scrub_vhdr(full_path, relpath):
+def scrub_vhdr(full_path: str | os.PathLike,
+               relpath: str) -> dict[str, tuple[list[str], list[str]]]:
     """Remove comment lines that look identifying from a BrainVision header."""
     header = read_vhdr(full_path)
     flagged = {finding.line for finding in vhdr_findings(relpath, header)}
@@ -386,7 +397,7 @@ def _scrub_table(root, relpath):
     return {"columns": (columns, [])}
 
 
-def scrub_dataset(root, *, measurement_dates="keep"):
+def scrub_dataset(root: str | os.PathLike, *, measurement_dates: str = "keep") -> list[dict]:
     """Remove what :func:`validate_dataset` reports as identifiers, in place.
 
     EDF/BDF patient fields become ``X X X X`` and recording fields ``Startdate <date> X X

@@ -7,6 +7,9 @@ million rows cannot grow a worker to gigabytes. The values are generous for real
 comment says why.
 """
 
+from __future__ import annotations
+
+import os
 from dataclasses import dataclass
 from pathlib import PurePosixPath
 
@@ -54,20 +57,21 @@ TABLE_WORDS = {
 }
 
 
-def table_kind(path):
+def table_kind(path: str | os.PathLike) -> str:
     """The kind of table a path names: its BIDS suffix (channels, events, ...) or "other"."""
     stem = PurePosixPath(str(path)).name.rsplit(".", 1)[0]
     suffix = stem.rsplit("_", 1)[-1]
     return suffix if suffix in TABLE_LIMITS else "other"
 
 
-def table_limit(path, overrides=None):
+def table_limit(path: str | os.PathLike,
+                overrides: dict[str, TableLimit] | None = None) -> TableLimit:
     """The :class:`TableLimit` of a table; ``overrides`` maps kinds to other limits."""
     kind = table_kind(path)
     return (overrides or {}).get(kind) or TABLE_LIMITS[kind]
 
 
-def show_bytes(n_bytes):
+def show_bytes(n_bytes: int) -> str:
     """A byte count for people: "8 MiB", "41.2 MiB", "812 bytes"."""
     if n_bytes < 1024:
         return f"{n_bytes} bytes"
@@ -79,14 +83,14 @@ def show_bytes(n_bytes):
     return f"{value:.1f} {unit}".replace(".0 ", " ")
 
 
-def too_large_message(size_bytes, max_size_bytes, what):
+def too_large_message(size_bytes: int, max_size_bytes: int, what: str) -> str:
     """Words for a file refused by its size, measured before reading."""
     return (f"is {show_bytes(size_bytes)}, more than the {show_bytes(max_size_bytes)} Cairn "
             f"reads for {what}, so it was not read; check that it is the file you meant to "
             "upload (an export that went wrong can repeat rows)")
 
 
-def too_many_rows_message(max_rows, kind, line):
+def too_many_rows_message(max_rows: int, kind: str, line: int) -> str:
     """Words for a table whose reading stopped at ``line``, past ``max_rows`` rows."""
     return (f"holds more than {max_rows:,} rows, the most Cairn reads for {kind} tables "
             f"({TABLE_WORDS[kind]}); reading stopped at line {line}. Check that it is the "

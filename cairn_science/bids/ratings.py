@@ -6,12 +6,20 @@ session and task / run / trial_type (several blocks inside one continuous record
 events whose trial_type names the condition).
 """
 
+from __future__ import annotations
+
 import math
 import re
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from .report import BlockInfo
 from .tables import MISSING, as_number
+
+if TYPE_CHECKING:
+    from .names import NameCheck
+    from .report import Report
+    from .sidecars import Tree
 
 DEFAULT_SCALE = {
     "min": 1,
@@ -42,7 +50,7 @@ class Scale:
     levels: tuple
 
     @classmethod
-    def from_dict(cls, scale):
+    def from_dict(cls, scale: dict | None) -> Scale:
         """Build from the caller's dict (None gives the default 1-9 scale); raises ValueError."""
         scale = DEFAULT_SCALE if scale is None else scale
         try:
@@ -67,13 +75,13 @@ class Scale:
                 raise ValueError(f"levels {name_a!r} and {name_b!r} overlap")
         return cls(low, high, tuple(ordered))
 
-    def level_of(self, rating):
+    def level_of(self, rating: int) -> str | None:
         for name, start, stop in self.levels:
             if start <= rating <= stop:
                 return name
         return None
 
-    def parse(self, text):
+    def parse(self, text: str) -> tuple[int | None, str | None]:
         """``(rating, problem)`` for a table cell: (None, None) for n/a or empty."""
         text = text.strip()
         if text in ("", MISSING):
@@ -103,7 +111,7 @@ class RatingSettings:
     unrated_conditions: tuple
 
     @classmethod
-    def from_dict(cls, ratings):
+    def from_dict(cls, ratings: dict | None) -> RatingSettings:
         merged = {**DEFAULT_RATINGS, **(ratings or {})}
         unknown = set(merged) - set(DEFAULT_RATINGS)
         if unknown:
@@ -118,7 +126,8 @@ class RatingSettings:
                    table, tuple(merged["unrated_conditions"]))
 
 
-def check_dictionary(dictionary, report, *, path, column, scale):
+def check_dictionary(dictionary: dict | None, report: Report, *, path: str, column: str,
+                     scale: Scale) -> None:
     """Compare a data dictionary's declaration of the rating column with the study's scale.
 
     The BIDS schema describes columns with ``Minimum``, ``Maximum`` and ``Levels``.
@@ -152,7 +161,8 @@ class Rated:
     line: int
 
 
-def read_rating(row, *, path, line, settings, scale, report):
+def read_rating(row: dict[str, str], *, path: str, line: int, settings: RatingSettings,
+                scale: Scale, report: Report) -> Rated:
     """Rating and condition of one table row; bad ratings are reported and become None."""
     condition = row.get(settings.condition_column, "").strip()
     condition = "" if condition == MISSING else condition
@@ -162,7 +172,8 @@ def read_rating(row, *, path, line, settings, scale, report):
     return Rated(rating, condition, path, line)
 
 
-def make_block(*, onset_s, duration_s, rated, condition, scale):
+def make_block(*, onset_s: float, duration_s: float | None, rated: Rated | None,
+               condition: str, scale: Scale) -> BlockInfo:
     rating = rated.rating if rated else None
     return BlockInfo(onset_s=onset_s, duration_s=duration_s, condition=condition,
                      rating=rating, level=scale.level_of(rating) if rating is not None else None)
@@ -176,7 +187,8 @@ class PhenotypeRow:
     rated: Rated
 
 
-def read_phenotype(tree, report, *, settings, scale, participants):
+def read_phenotype(tree: Tree, report: Report, *, settings: RatingSettings, scale: Scale,
+                   participants: set[str]) -> list[PhenotypeRow] | None:
     """Rows of the phenotype ratings table, checked; None when the table is unusable."""
     path = settings.table
     if not tree.exists(path):
@@ -234,7 +246,7 @@ def read_phenotype(tree, report, *, settings, scale, participants):
     return rows
 
 
-def row_matches(row, recording):
+def row_matches(row: PhenotypeRow, recording: NameCheck) -> bool:
     """Whether a phenotype row is about a recording (``NameCheck`` entities)."""
     entities = recording.entities
     if row.participant != entities.get("sub"):

@@ -7,9 +7,12 @@ Cairn reads, before mne opens anything; then it applies Cairn's rule for channel
 channels.tsv type is ``n/a``.
 """
 
+from __future__ import annotations
+
 import os
 import warnings
 from pathlib import Path, PurePosixPath
+from typing import TYPE_CHECKING
 
 from .channel_types import MISSING, type_for_unknown
 from .companions import companion_files
@@ -22,6 +25,11 @@ from .limits import (
 )
 from .readers import read_tsv
 from .report import Problem, RefusedFile
+
+if TYPE_CHECKING:
+    import mne
+
+    from .limits import TableLimit
 
 CHUNK_BYTES = 1 << 20
 # What mne_bids.read_raw_bids (0.20) looks for beside a recording, as (suffix, extension).
@@ -66,7 +74,9 @@ def _rows_past(path, max_rows):
     return None
 
 
-def check_table_sizes(root, relpath, *, table_limits=None, max_json_bytes=MAX_JSON_BYTES):
+def check_table_sizes(root: str | os.PathLike, relpath: str, *,
+                      table_limits: dict[str, TableLimit] | None = None,
+                      max_json_bytes: int = MAX_JSON_BYTES) -> None:
     """Refuse (:class:`TableTooLarge`) the tables and sidecars mne-bids may read for the
     recording ``relpath`` that are links out of the dataset or past their limits
     (``table_limits`` maps kinds of table to :class:`~cairn_science.bids.limits.TableLimit`)."""
@@ -120,8 +130,10 @@ def _apply_unknown_types(raw, bids_path, table_limits):
         raw.set_channel_types(present, on_unit_change="ignore")
 
 
-def read_recording(root, relpath, *, preload=True, on_ch_mismatch="raise", table_limits=None,
-                   max_json_bytes=MAX_JSON_BYTES):
+def read_recording(root: str | os.PathLike, relpath: str, *, preload: bool = True,
+                   on_ch_mismatch: str = "raise",
+                   table_limits: dict[str, TableLimit] | None = None,
+                   max_json_bytes: int = MAX_JSON_BYTES) -> mne.io.BaseRaw:
     """The recording ``relpath`` (POSIX, from the dataset root) as an mne Raw with its BIDS
     sidecars applied, its data loaded when ``preload``.
 

@@ -1,6 +1,13 @@
 """What a validation run returns: problems, de-identification findings and the recording index."""
 
+from __future__ import annotations
+
+from collections.abc import Iterable
 from dataclasses import asdict, dataclass, field
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from .readers import JsonDocument, Table
 
 
 @dataclass
@@ -23,7 +30,7 @@ class RefusedFile(ValueError):
     """A file Cairn will not read (or follow); ``problems`` name the file, line and field,
     and say what to do."""
 
-    def __init__(self, problems):
+    def __init__(self, problems: Iterable[Problem]):
         self.problems = list(problems)
         super().__init__("; ".join(f"{p.path}: {p.message}" for p in self.problems))
 
@@ -94,26 +101,29 @@ class Report:
     bids_version: str = ""
 
     @property
-    def ok(self):
+    def ok(self) -> bool:
         return not self.errors
 
-    def error(self, path, message, line=None, field=None, code=""):
+    def error(self, path: str, message: str, line: int | None = None,
+              field: str | None = None, code: str = "") -> None:
         self.errors.append(Problem(path, message, line, field, code))
 
-    def warn(self, path, message, line=None, field=None, code=""):
+    def warn(self, path: str, message: str, line: int | None = None,
+             field: str | None = None, code: str = "") -> None:
         self.warnings.append(Problem(path, message, line, field, code))
 
-    def add(self, severity, path, message, line=None, field=None, code=""):
+    def add(self, severity: str, path: str, message: str, line: int | None = None,
+            field: str | None = None, code: str = "") -> None:
         """Add a problem as "error" or "warning"."""
         target = self.errors if severity == "error" else self.warnings
         target.append(Problem(path, message, line, field, code))
 
-    def absorb(self, source):
+    def absorb(self, source: Report | JsonDocument | Table) -> None:
         """Take over the errors and warnings a reader collected (``source.errors/.warnings``)."""
         self.errors.extend(source.errors)
         self.warnings.extend(source.warnings)
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {
             "errors": [asdict(p) for p in self.errors],
             "warnings": [asdict(p) for p in self.warnings],

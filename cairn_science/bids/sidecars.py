@@ -7,12 +7,20 @@ comes from the deepest folder that has one. Two applicable files in one folder a
 because nothing says which one wins.
 """
 
+from __future__ import annotations
+
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from .limits import table_limit
 from .names import NameCheck, check_path, walk_dataset
-from .readers import read_json, read_tsv
+from .readers import JsonDocument, Table, read_json, read_tsv
+
+if TYPE_CHECKING:
+    from .limits import TableLimit
+    from .report import Report
 
 
 @dataclass
@@ -22,7 +30,7 @@ class Applicable:
     levels: list = field(default_factory=list)
 
     @property
-    def paths(self):
+    def paths(self) -> list[str]:
         return [path for level in self.levels for path in level]
 
 
@@ -34,7 +42,8 @@ class Tree:
     table (channels, events, ...) to other :class:`~cairn_science.bids.limits.TableLimit` values.
     """
 
-    def __init__(self, root, checks, *, table_limits=None):
+    def __init__(self, root: str | os.PathLike, checks: list[NameCheck], *,
+                 table_limits: dict[str, TableLimit] | None = None):
         self.root = Path(root)
         self.table_limits = table_limits
         self.checks = {check.path: check for check in checks}
@@ -48,20 +57,21 @@ class Tree:
         self._clashes = set()
 
     @classmethod
-    def from_root(cls, root, *, table_limits=None):
+    def from_root(cls, root: str | os.PathLike, *,
+                  table_limits: dict[str, TableLimit] | None = None) -> Tree:
         """Index a dataset folder by walking it and checking every name."""
         return cls(root, [check_path(path) for path in walk_dataset(root).files],
                    table_limits=table_limits)
 
-    def exists(self, path):
+    def exists(self, path: str) -> bool:
         return path in self.checks
 
-    def json(self, path):
+    def json(self, path: str) -> JsonDocument:
         if path not in self._json:
             self._json[path] = read_json(self.root / path, relpath=path)
         return self._json[path]
 
-    def table(self, path):
+    def table(self, path: str) -> Table:
         if path not in self._tables:
             limit = table_limit(path, self.table_limits)
             self._tables[path] = read_tsv(self.root / path, relpath=path,
@@ -69,13 +79,13 @@ class Tree:
                                           max_size_bytes=limit.max_size_bytes)
         return self._tables[path]
 
-    def take_problems(self, report, document):
+    def take_problems(self, report: Report, document: JsonDocument | Table) -> None:
         """Copy a document's reading problems into the report the first time it is used."""
         if document.path not in self._reported:
             self._reported.add(document.path)
             report.absorb(document)
 
-    def applicable(self, data, *, suffix, extension):
+    def applicable(self, data: NameCheck, *, suffix: str, extension: str) -> Applicable:
         """Files with ``suffix``/``extension`` that apply to the data file ``data``."""
         result = Applicable()
         parts = data.folder.split("/") if data.folder else []
@@ -93,7 +103,8 @@ class Tree:
                 result.levels.append(found)
         return result
 
-    def merged_json(self, data, *, suffix, report):
+    def merged_json(self, data: NameCheck, *, suffix: str,
+                    report: Report) -> tuple[dict, list[str], Applicable]:
         """Merged JSON metadata of ``suffix`` for a data file, and the files it came from.
 
         Reading problems of each file and same-folder clashes are added to ``report``.
@@ -112,7 +123,7 @@ class Tree:
                 sources.append(path)
         return merged, sources, found
 
-    def closest_table(self, data, *, suffix, report):
+    def closest_table(self, data: NameCheck, *, suffix: str, report: Report) -> str | None:
         """Path of the deepest applicable ``_<suffix>.tsv`` of a data file, or None."""
         found = self.applicable(data, suffix=suffix, extension=".tsv")
         if not found.levels:
