@@ -17,7 +17,7 @@ class JobKind:
     name: str
     label: str
     handler: str  # dotted path "module:function"
-    queue: str = "compute"
+    queue: str = "training"
     on_failure: str = ""
 
 
@@ -37,27 +37,47 @@ KINDS = {
             on_failure="portal.datasets.services:validation_failed",
         ),
         JobKind("qc.version", "quality checks of a dataset version",
-                "portal.quality.jobs:run_version", queue="intake"),
+                "portal.quality.jobs:run_version", queue="quality"),
         JobKind("qc.recording", "quality checks of a recording",
-                "portal.quality.jobs:run_recording", queue="compute"),
+                "portal.quality.jobs:run_recording", queue="quality"),
         JobKind("features.set", "feature set: plan the recordings",
-                "portal.features.jobs:run_set", queue="compute"),
+                "portal.features.jobs:run_set", queue="training"),
         JobKind("features.recording", "features of a recording",
-                "portal.features.jobs:run_recording", queue="compute"),
+                "portal.features.jobs:run_recording", queue="training"),
         JobKind("features.combine", "feature set: join the table",
-                "portal.features.jobs:run_combine", queue="compute"),
+                "portal.features.jobs:run_combine", queue="training"),
         JobKind("training.run", "training run: check and plan the folds",
-                "portal.training.jobs:run_run", queue="compute"),
+                "portal.training.jobs:run_run", queue="training"),
         JobKind("training.fold", "training run: one model on one fold",
-                "portal.training.jobs:run_fold", queue="compute"),
+                "portal.training.jobs:run_fold", queue="training"),
         JobKind("training.finish", "training run: statistics and releases",
-                "portal.training.jobs:run_finish", queue="compute"),
+                "portal.training.jobs:run_finish", queue="training"),
         JobKind("audit.reproduce", "compute a stored result again from its record",
-                "portal.audit.jobs:run_reproduce", queue="compute"),
+                "portal.audit.jobs:run_reproduce", queue="training"),
     )
 }
 
-QUEUES = ("intake", "compute")
+#: The queues, in the order a worker that takes them all serves them. Under Redis with
+#: ``queue_order_strategy="priority"`` (portal.celery) a worker asks for its queues' next
+#: message in this order every time it has a free slot, so it takes a message from a later
+#: queue only when every earlier one is empty:
+#:
+#: * intake: what a person waits for at the screen: validating an upload, the worker check;
+#: * quality: the checks of a new dataset version (planned, then one job per recording);
+#: * bookkeeping: Celery's periodic tasks (job sweeps, audit sealing, anchoring and
+#:   verification, ending abandoned uploads); short, and each expires after its own period
+#:   so they never pile up, so taking them before the next training fold costs little and
+#:   keeps the audit chain sealed during long runs;
+#: * training: features, training runs and their folds, reproductions: long, and nobody's
+#:   screen waits on one fold.
+QUEUES = ("intake", "quality", "bookkeeping", "training")
+
+#: The ``-Q`` argument of the default worker command (all queues, in priority order).
+WORKER_QUEUES = ",".join(QUEUES)
+
+#: Celery's periodic tasks, all on the bookkeeping queue.
+BOOKKEEPING_TASKS = ("cairn.sweep_jobs", "cairn.expire_uploads", "cairn.audit_seal",
+                     "cairn.audit_anchor", "cairn.audit_verify")
 
 
 def get_kind(name):

@@ -8,18 +8,20 @@ from pathlib import Path
 
 import pytest
 
+from portal.jobs.kinds import WORKER_QUEUES
+
 REPO = Path(__file__).resolve().parents[2]
 
 
 class Worker:
     """A ``celery worker`` in its own process (solo pool: the task runs in that process)."""
 
-    def __init__(self, env, log_path, name):
+    def __init__(self, env, log_path, name, queues=WORKER_QUEUES):
         self.log_path = log_path
         self.log = open(log_path, "ab")
         self.proc = subprocess.Popen(
             [sys.executable, "-m", "celery", "-A", "portal", "worker", "-P", "solo",
-             "-Q", "intake,compute", "-n", f"{name}@%h", "--without-gossip", "--without-mingle",
+             "-Q", queues, "-n", f"{name}@%h", "--without-gossip", "--without-mingle",
              "--without-heartbeat", "--loglevel=INFO"],
             cwd=REPO, env=env, stdout=self.log, stderr=subprocess.STDOUT,
         )
@@ -46,8 +48,8 @@ class Worker:
 def start_worker(tmp_path):
     started = []
 
-    def start(env, name="w"):
-        worker = Worker(env, tmp_path / f"{name}-{len(started)}.log", name)
+    def start(env, name="w", queues=WORKER_QUEUES):
+        worker = Worker(env, tmp_path / f"{name}-{len(started)}.log", name, queues)
         started.append(worker)
         return worker
 

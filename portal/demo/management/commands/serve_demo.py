@@ -8,6 +8,7 @@ from django.conf import settings
 from django.core.management.base import BaseCommand, CommandError
 
 from portal.demo.consortium import DEMO_SPEC, FEATURES_MARKER, TRAINING_MARKER
+from portal.jobs.kinds import WORKER_QUEUES
 
 
 class Command(BaseCommand):
@@ -24,7 +25,7 @@ class Command(BaseCommand):
         log_dir.mkdir(parents=True, exist_ok=True)
         commands = {
             "worker": [python, "-m", "celery", "-A", "portal", "worker", "--beat",
-                       "--queues", "intake,compute", "--concurrency", str(worker_processes),
+                       "--queues", WORKER_QUEUES, "--concurrency", str(worker_processes),
                        "--loglevel", "INFO", "--schedule", str(settings.VAR_DIR / "beat-schedule")],
             "web": [python, "-m", "gunicorn", "portal.wsgi", "--bind", bind, "--workers", "2",
                     "--timeout", "120"],

@@ -4,6 +4,7 @@ import time
 from django.core.management.base import BaseCommand, CommandError
 from django.db import transaction
 
+from portal.jobs.kinds import WORKER_QUEUES
 from portal.jobs.models import Job, JobState
 from portal.jobs.services import enqueue
 
@@ -29,7 +30,8 @@ class Command(BaseCommand):
         if job.state != JobState.DONE:
             raise CommandError(
                 f"worker check job {job.pk} is {job.get_state_display()} after {timeout_s:g} s: "
-                "is a worker running? Start one with: celery -A portal worker -Q intake,compute"
+                "is a worker running? Start one with: celery -A portal worker -Q "
+                f"{WORKER_QUEUES}"
             )
 
     def _describe(self, job: Job):
