@@ -2,7 +2,12 @@ import json
 
 from django import forms
 
-from portal.studies.protocol import parse_channel_rule
+from cairn_science.signal.prepare import PrepSettings
+from portal.studies.protocol import parse_channel_rule, prep_problems
+
+
+def _limits(name):
+    return PrepSettings._parameter_constraints[name][0].describe().capitalize() + "."
 
 
 class FeatureSetForm(forms.Form):
@@ -15,9 +20,10 @@ class FeatureSetForm(forms.Form):
         required=False, label="Channels",
         help_text="'common', 'present' or names separated by commas; empty keeps the study's "
                   "choice.")
-    window_s = forms.FloatField(required=False, min_value=0.25, label="Window length (s)")
-    overlap = forms.FloatField(required=False, min_value=0, max_value=0.9,
-                               label="Window overlap (share of a window)")
+    window_s = forms.FloatField(required=False, label="Window length (s)",
+                                help_text=_limits("window_s"))
+    overlap = forms.FloatField(required=False, label="Window overlap (share of a window)",
+                               help_text=_limits("overlap"))
     bad_channels = forms.ChoiceField(
         required=False, label="Channels marked bad",
         choices=[("", "as the study says"), ("interpolate", "interpolate"),
@@ -42,6 +48,17 @@ class FeatureSetForm(forms.Form):
         self.fields["sites"].choices = [(s.slug, s.name) for s in sites]
         self.fields["band_signals"].choices = [(b["name"], b["name"]) for b in bands]
         self.fields["features"].choices = features
+
+    def clean(self):
+        """Window length and overlap by the science's limits (PrepSettings), on their
+        fields."""
+        data = super().clean()
+        given = {key: data[key] for key in ("window_s", "overlap")
+                 if data.get(key) is not None}
+        for field, messages in prep_problems(given, prefix="").items():
+            for message in messages:
+                self.add_error(field, message)
+        return data
 
     def clean_extra(self):
         text = self.cleaned_data.get("extra", "").strip()

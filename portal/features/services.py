@@ -1,12 +1,15 @@
 """Asking for a feature set: resolving parameters, pinning each recording's inputs, reuse.
 
-The web process never imports the signal libraries: parameters are checked here as plain
-data, and the worker checks them again when it builds its settings objects.
+The preparation parameters are built here as the science's ``PrepSettings`` (which loads no
+signal library until a recording is prepared) and checked once by its declared limits; the
+set stores their plain form (``as_dict``) and the worker rebuilds the same object from it.
 """
 
 from django.db import transaction
 
 from cairn_science.canonical_json import canonical_sha256
+from cairn_science.params import ParamError
+from cairn_science.signal.prepare import PrepSettings, site_key
 from cairn_science.versions import FEATURES_CODE_VERSION
 from portal.audit.events import record
 from portal.datasets.models import DatasetVersion
@@ -17,16 +20,21 @@ from portal.quality.services import effective_channels, latest_overrides, runs_o
 from portal.studies.models import current_protocol
 from portal.studies.protocol import DEFAULT_PROTOCOL
 
-PREPROCESSING_FIELDS = ("l_freq_hz", "h_freq_hz", "notch", "analysis_sfreq_hz",
-                        "bad_channels", "reference", "window_s", "overlap")
+#: What a request may override of the preparation: PrepSettings' fields but the channels
+#: (given by the top-level channel rule).
+PREPROCESSING_FIELDS = tuple(name for name in PrepSettings._parameter_constraints
+                             if name != "channels")
 FEATURE_FIELDS = ("features", "params", "band_signals", "welch_segment_s", "bands")
 TOP_LEVEL = ("channels", "preprocessing", "features")
-#: Old and new names of the same 10-20 positions (common practice, no source).
-ALIASES = {"t3": "t7", "t4": "t8", "t5": "p7", "t6": "p8"}
 
 
 class FeatureRequestError(ValueError):
-    """A request that cannot be computed; the message says what to change."""
+    """A request that cannot be computed; the message says what to change. ``field`` names
+    the request field at fault (e.g. ``preprocessing.overlap``) when there is one."""
+
+    def __init__(self, message, *, field=None):
+        self.field = field
+        super().__init__(f"{field}: {message}" if field else message)
 
 
 def canonical_digest(data):
@@ -34,8 +42,9 @@ def canonical_digest(data):
 
 
 def channel_key(name):
-    lowered = name.strip().lower()
-    return ALIASES.get(lowered, lowered)
+    """Case-insensitive key of an electrode name, classic and modern 10-20 names alike (the
+    science's matching: ``cairn_science.signal.prepare.site_key``)."""
+    return site_key(name)
 
 
 def common_channels(channel_lists):
@@ -107,26 +116,21 @@ def resolve_params(study, pinned, overrides=None):
     rate = pre_in.get("analysis_sfreq_hz", defaults["analysis_sfreq_hz"])
     if rate is None:
         rate = min(float(r.sfreq_hz) for r in recordings)
-    preprocessing = {
-        "l_freq_hz": float(pre_in.get("l_freq_hz", passband["l_freq_hz"])),
-        "h_freq_hz": float(pre_in.get("h_freq_hz", passband["h_freq_hz"])),
-        "notch": bool(pre_in.get("notch", defaults["notch"])),
-        "analysis_sfreq_hz": float(rate),
-        "channels": channels,
-        "bad_channels": pre_in.get("bad_channels", defaults["bad_channels"]),
-        "reference": pre_in.get("reference", defaults["reference"]),
-        "window_s": float(pre_in.get("window_s", defaults["window_s"])),
-        "overlap": float(pre_in.get("overlap", defaults["overlap"])),
+    given = {
+        "l_freq_hz": passband["l_freq_hz"], "h_freq_hz": passband["h_freq_hz"],
+        **{key: defaults[key] for key in ("notch", "bad_channels", "reference", "window_s",
+                                          "overlap")},
+        **pre_in, "analysis_sfreq_hz": rate, "channels": channels,
     }
-    if preprocessing["bad_channels"] not in ("interpolate", "drop"):
-        raise FeatureRequestError("preprocessing.bad_channels: choose 'interpolate' or 'drop'")
-    if preprocessing["reference"] not in ("average", "as_recorded"):
-        raise FeatureRequestError("preprocessing.reference: choose 'average' or 'as_recorded'")
-    if not 0 <= preprocessing["l_freq_hz"] < preprocessing["h_freq_hz"]:
-        raise FeatureRequestError("preprocessing: l_freq_hz must be below h_freq_hz")
-    if not 0 <= preprocessing["overlap"] < 1 or preprocessing["window_s"] <= 0:
-        raise FeatureRequestError(
-            "preprocessing: window_s must be positive and overlap in [0, 1)")
+    try:
+        settings = PrepSettings.from_dict(given)
+    except ParamError as exc:
+        paths = [p.field if p.field == "channels" else f"preprocessing.{p.field}"
+                 for p in exc.problems]
+        rest = "".join(f"; {path}: {p.message}"
+                       for path, p in zip(paths[1:], exc.problems[1:], strict=True))
+        raise FeatureRequestError(exc.problems[0].message + rest, field=paths[0]) from None
+    preprocessing = settings.as_dict()
     slowest = min(float(r.sfreq_hz) for r in recordings)
     if preprocessing["analysis_sfreq_hz"] > slowest:
         raise FeatureRequestError(

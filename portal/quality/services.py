@@ -9,6 +9,25 @@ from portal.audit.events import record
 from portal.jobs.services import enqueue
 from portal.quality.models import ChannelOverride, EffectiveVerdict, QCRound, QCRun, Verdict
 from portal.studies.models import current_protocol
+from portal.studies.protocol import qc_problems
+
+
+class QCRequestError(ValueError):
+    """Thresholds the checks cannot use; ``errors`` maps a setting to messages."""
+
+    def __init__(self, errors):
+        self.errors = errors
+        super().__init__("; ".join(f"{k}: {m}" for k, ms in errors.items() for m in ms))
+
+
+def check_settings(qc_settings):
+    """Raise QCRequestError naming every threshold outside QCSettings' limits (the object
+    the worker builds from the stored settings)."""
+    if not isinstance(qc_settings, dict):
+        raise QCRequestError({"settings": ["give the thresholds as an object"]})
+    problems = qc_problems(qc_settings)
+    if problems:
+        raise QCRequestError(problems)
 
 
 def settings_digest(qc_settings):
@@ -23,9 +42,14 @@ def start_round(version, *, user=None, qc_settings=None):
     """Ask for the checks of every recording of ``version`` (study settings by default).
 
     Returns (round, created). Asking again with the same settings returns the same round.
+    The settings are checked once by QCSettings' limits (QCRequestError names each bad
+    one, before anything is stored) and stored as given: the digest of unchanged values is
+    the one rows and audit events already hold, and the worker rebuilds QCSettings from
+    them (defaults for the rest).
     """
     qc_settings = dict(qc_settings if qc_settings is not None else protocol_settings(
         version.study))
+    check_settings(qc_settings)
     digest = settings_digest(qc_settings)
     with transaction.atomic():
         qc_round, created = QCRound.objects.get_or_create(

@@ -1,5 +1,6 @@
 from django import forms
 
+from cairn_science.signal.prepare import PrepSettings
 from portal.studies.protocol import (
     DEFAULT_PROTOCOL,
     QC_FIELDS,
@@ -54,8 +55,14 @@ class ProtocolForm(forms.Form):
     feature_reference = forms.ChoiceField(
         choices=[("average", "average of the kept channels"),
                  ("as_recorded", "as recorded")], label="Reference")
-    feature_window_s = forms.FloatField(label="Window length (s)")
-    feature_overlap = forms.FloatField(label="Window overlap (share of a window, 0 to 0.9)")
+    feature_window_s = forms.FloatField(
+        label="Window length (s)",
+        help_text=PrepSettings._parameter_constraints["window_s"][0].describe().capitalize()
+        + ".")
+    feature_overlap = forms.FloatField(
+        label="Window overlap (share of a window)",
+        help_text=PrepSettings._parameter_constraints["overlap"][0].describe().capitalize()
+        + ".")
     note = forms.CharField(required=False, max_length=300, label="Why this change?")
 
     def __init__(self, *args, protocol, **kwargs):
@@ -130,10 +137,14 @@ class ProtocolForm(forms.Form):
             },
         }
         field_for = {"rating_scale": "levels", "passband": "h_freq_hz",
+                     "passband.l_freq_hz": "l_freq_hz", "passband.h_freq_hz": "h_freq_hz",
                      "ratings": "ratings_table", "features.channels": "feature_channels",
                      "features.window_s": "feature_window_s",
                      "features.overlap": "feature_overlap",
-                     "features.analysis_sfreq_hz": "feature_sfreq_hz"}
+                     "features.analysis_sfreq_hz": "feature_sfreq_hz",
+                     "features.notch": "feature_notch",
+                     "features.bad_channels": "feature_bad_channels",
+                     "features.reference": "feature_reference"}
         try:
             validate_protocol(protocol)
         except ProtocolError as exc:

@@ -2,12 +2,21 @@
 
 Defaults are common practice in EEG workload research (no source): a 9-point workload rating
 binned 1–3 low, 4–6 moderate, 7–9 high; bands delta 0.5–4, theta 4–8, alpha 8–13, beta 13–30
-and gamma 30–40 Hz inside a 0.5–40 Hz analysis pass-band.
+and gamma 30–40 Hz inside a 0.5–40 Hz analysis pass-band. The pass-band, the feature
+preparation and the quality thresholds take their defaults and limits from the science's
+parameter objects (``PrepSettings``, ``QCSettings``); only what is the portal's own (channel
+rule, band list, rating scale) is defined here.
 """
 
 import copy
 
 from cairn_science.bids.ratings import DEFAULT_SCALE
+from cairn_science.params import validate
+from cairn_science.qc.settings import QCSettings
+from cairn_science.signal.prepare import PrepSettings, site_key
+
+_PREP = PrepSettings()
+_QC = QCSettings()
 
 DEFAULT_PROTOCOL = {
     "tasks": ["rest", "task"],
@@ -22,7 +31,7 @@ DEFAULT_PROTOCOL = {
     # Identifying headers or columns: "refuse" the upload, or "scrub" them and keep only the
     # original files' hashes.
     "deidentification": "refuse",
-    "passband": {"l_freq_hz": 0.5, "h_freq_hz": 40.0},
+    "passband": {"l_freq_hz": _PREP.l_freq_hz, "h_freq_hz": _PREP.h_freq_hz},
     "bands": [
         {"name": "delta", "l_freq_hz": 0.5, "h_freq_hz": 4.0},
         {"name": "theta", "l_freq_hz": 4.0, "h_freq_hz": 8.0},
@@ -36,22 +45,13 @@ DEFAULT_PROTOCOL = {
     "features": {
         "channels": "common",
         "analysis_sfreq_hz": None,
-        "notch": True,
-        "bad_channels": "interpolate",
-        "reference": "average",
-        "window_s": 4.0,
-        "overlap": 0.5,
+        "notch": _PREP.notch,
+        "bad_channels": _PREP.bad_channels,
+        "reference": _PREP.reference,
+        "window_s": _PREP.window_s,
+        "overlap": _PREP.overlap,
         "band_signals": [],
         "features": None,
-    },
-    # Our starting thresholds; each study lead sets their own.
-    "qc": {
-        "bad_channel_share_review": 0.10,
-        "bad_channel_share_fail": 0.25,
-        "rejected_time_share_review": 0.15,
-        "rejected_time_share_fail": 0.40,
-        "min_duration_s": 60.0,
-        "min_sfreq_hz": 100.0,
     },
 }
 
@@ -63,6 +63,29 @@ QC_FIELDS = {
     "min_duration_s": "shortest usable recording (s)",
     "min_sfreq_hz": "lowest usable sampling rate (Hz)",
 }
+# Our starting thresholds (QCSettings'); each study lead sets their own.
+DEFAULT_PROTOCOL["qc"] = {key: getattr(_QC, key) for key in QC_FIELDS}
+#: The protocol's feature fields checked by PrepSettings' limits.
+PREP_FIELDS = ("analysis_sfreq_hz", "notch", "bad_channels", "reference", "window_s",
+               "overlap")
+
+
+def prep_problems(values, *, prefix):
+    """Problems of preparation values (a subset of PrepSettings' fields) by the science's
+    limits, with paths under ``prefix``; {path: [messages]}."""
+    constraints = {key: PrepSettings._parameter_constraints[key] for key in values}
+    out = {}
+    for problem in validate(values, constraints, prefix=prefix):
+        out.setdefault(problem.field, []).append(problem.message)
+    return out
+
+
+def qc_problems(values, *, prefix=""):
+    """Problems of quality thresholds by QCSettings' limits and order; {path: [messages]}."""
+    out = {}
+    for problem in validate(values, QCSettings, prefix=prefix):
+        out.setdefault(problem.field, []).append(problem.message)
+    return out
 
 
 def default_protocol():
@@ -133,9 +156,15 @@ def validate_protocol(protocol):
 
     band = protocol.get("passband", {})
     l_pass, h_pass = band.get("l_freq_hz"), band.get("h_freq_hz")
-    if not (isinstance(l_pass, (int, float)) and isinstance(h_pass, (int, float))
-            and 0 <= l_pass < h_pass):
-        add("passband", "give 0 ≤ low edge < high edge, in Hz")
+    passband_problems = prep_problems({"l_freq_hz": l_pass, "h_freq_hz": h_pass},
+                                      prefix="passband")
+    if not passband_problems and l_pass >= h_pass:
+        passband_problems = {"passband.l_freq_hz": [
+            f"give a low edge below the high edge ({h_pass:g} Hz); got {l_pass:g} Hz"]}
+    for field, messages in passband_problems.items():
+        for message in messages:
+            add(field, message)
+    if passband_problems:
         l_pass = h_pass = None
 
     bands = protocol.get("bands", [])
@@ -157,39 +186,31 @@ def validate_protocol(protocol):
         previous_high = b["h_freq_hz"]
 
     qc = protocol.get("qc", {})
-    for key in QC_FIELDS:
-        value = qc.get(key)
-        if not isinstance(value, (int, float)) or value < 0:
-            add(f"qc.{key}", "give a number ≥ 0")
-        elif key.endswith(("_review", "_fail")) and value > 1:
-            add(f"qc.{key}", "a share lies between 0 and 1")
-    for what in ("bad_channel_share", "rejected_time_share"):
-        review, fail = qc.get(f"{what}_review"), qc.get(f"{what}_fail")
-        if isinstance(review, (int, float)) and isinstance(fail, (int, float)) and review > fail:
-            add(f"qc.{what}_review", "the review threshold must not be above the fail threshold")
+    if not isinstance(qc, dict):
+        add("qc", "give the quality thresholds as an object")
+    else:
+        for field, messages in qc_problems(qc, prefix="qc").items():
+            for message in messages:
+                add(field, message)
     features = {**DEFAULT_PROTOCOL["features"], **protocol.get("features", {})}
     channels = features["channels"]
     if not (channels in ("common", "present") or (
             isinstance(channels, list) and channels and all(isinstance(c, str) for c in channels))):
         add("features.channels", "say 'common', 'present' or list channel names")
-    elif isinstance(channels, list) and len({c.lower() for c in channels}) != len(channels):
-        add("features.channels", "each channel may be listed only once")
-    window_s, overlap = features["window_s"], features["overlap"]
-    if not isinstance(window_s, (int, float)) or not 0.25 <= window_s <= 600:
-        add("features.window_s", "give a window length between 0.25 and 600 s")
-    if not isinstance(overlap, (int, float)) or not 0 <= overlap <= 0.9:
-        add("features.overlap", "give an overlap between 0 and 0.9 of a window")
+    elif isinstance(channels, list) and len({site_key(c) for c in channels}) != len(channels):
+        add("features.channels", "each channel may be listed only once (T3 is T7, T4 T8, "
+                                 "T5 P7, T6 P8)")
+    for field, messages in prep_problems({key: features[key] for key in PREP_FIELDS},
+                                         prefix="features").items():
+        for message in messages:
+            add(field, message)
     rate = features["analysis_sfreq_hz"]
-    if rate is not None and (not isinstance(rate, (int, float)) or rate <= 0):
-        add("features.analysis_sfreq_hz", "give a rate in Hz, or leave it empty")
+    if "features.analysis_sfreq_hz" in errors:
+        pass
     elif rate is not None and h_pass is not None and rate < 2.5 * h_pass:
         add("features.analysis_sfreq_hz",
             f"{rate} Hz is too low for a pass-band up to {h_pass} Hz; give at least "
             f"{2.5 * h_pass:g} Hz")
-    if features["bad_channels"] not in ("interpolate", "drop"):
-        add("features.bad_channels", "choose 'interpolate' or 'drop'")
-    if features["reference"] not in ("average", "as_recorded"):
-        add("features.reference", "choose 'average' or 'as_recorded'")
     if errors:
         raise ProtocolError(errors)
     return protocol

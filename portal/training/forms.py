@@ -1,32 +1,37 @@
-"""The training form: a comparison run from a few choices, or a whole spec as JSON."""
+"""The training form: a comparison run from a few choices, or a whole spec as JSON.
+
+The learner and scheme lists, their labels and the defaults come from the science's tables
+(``LEARNERS``, ``SCHEME_LABELS``, ``Scheme``); the spec the form builds is checked by the
+science's spec check, whose problems land on the form's fields.
+"""
 
 import json
 
 from django import forms
 
-LEARNER_CHOICES = [
-    ("lda", "linear discriminant (shrinkage)"), ("logistic", "logistic regression"),
-    ("linear_svm", "linear SVM"), ("rbf_svm", "RBF SVM"), ("knn", "k nearest neighbours"),
-    ("random_forest", "random forest"), ("extra_trees", "extra trees"),
-    ("hist_gradient_boosting", "histogram gradient boosting"), ("mlp", "small neural network"),
-]
-SCHEME_CHOICES = [
-    ("grouped_kfold", "k folds grouped by participant"),
-    ("leave_one_participant_out", "leave one participant out"),
-    ("leave_one_site_out", "leave one site out"),
-    ("within_participant_time", "within participant, later windows held out (known people "
-                                "only)"),
-]
+from cairn_science.learning.learners import learner_choices
+from cairn_science.learning.spec import (
+    ENSEMBLES,
+    STATISTICS_DEFAULTS,
+    SpecError,
+    TrainingSpec,
+)
+from cairn_science.learning.validation import SCHEME_LABELS, Scheme
+
+#: Which form field shows a problem of a spec path (form mode); others go above the form.
+FIELD_FOR = {"validation.scheme": "scheme", "validation.n_splits": "n_splits",
+             "label.kind": "label_kind", "comparison.learners": "learners",
+             "comparison.strategies": "strategies", "comparison.members": "members",
+             "normalisation.participant": "normalisation",
+             "normalisation.site_standardise": "site_standardise",
+             "statistics.permutations": "permutations", "seed": "seed"}
 
 
 def _numbers(text, field):
     try:
-        values = [int(v) for v in text.replace(",", " ").split()]
+        return [int(v) for v in text.replace(",", " ").split()]
     except ValueError:
         raise forms.ValidationError(f"{field}: give whole numbers separated by commas") from None
-    if not values or min(values) < 2:
-        raise forms.ValidationError(f"{field}: each member count must be at least 2")
-    return values
 
 
 class TrainingForm(forms.Form):
@@ -36,15 +41,13 @@ class TrainingForm(forms.Form):
     label_kind = forms.ChoiceField(choices=[("level", "workload level from the ratings"),
                                             ("condition", "condition (e.g. rest against task)")],
                                    label="What to predict")
-    scheme = forms.ChoiceField(choices=SCHEME_CHOICES, label="Validation")
-    n_splits = forms.IntegerField(min_value=2, max_value=20, initial=5,
-                                  label="Folds (grouped k folds)")
-    learners = forms.MultipleChoiceField(choices=LEARNER_CHOICES, initial=["lda", "logistic"],
+    scheme = forms.ChoiceField(label="Validation")
+    n_splits = forms.IntegerField(label="Folds (grouped k folds)")
+    learners = forms.MultipleChoiceField(initial=["lda", "logistic"],
                                          widget=forms.CheckboxSelectMultiple,
                                          label="Member learners (each also runs alone)")
-    strategies = forms.MultipleChoiceField(choices=[("bagging", "bagging"),
-                                                    ("stacking", "stacking")],
-                                           initial=["bagging", "stacking"], required=False,
+    strategies = forms.MultipleChoiceField(choices=[(name, name) for name in ENSEMBLES],
+                                           initial=list(ENSEMBLES), required=False,
                                            widget=forms.CheckboxSelectMultiple,
                                            label="Ensembles")
     members = forms.CharField(initial="5, 10", label="Member counts",
@@ -56,7 +59,9 @@ class TrainingForm(forms.Form):
                                           label="Standardise per site (fitted on training folds)")
     paired_test = forms.BooleanField(required=False, initial=True,
                                      label="Compare ensembles with their learners "
-                                           "(repeated 5 × 5 grouped folds)")
+                                           f"(repeated {STATISTICS_DEFAULTS['paired_repeats']}"
+                                           f" × {STATISTICS_DEFAULTS['paired_splits']} "
+                                           "grouped folds)")
     permutations = forms.IntegerField(
         min_value=0, max_value=1000, initial=200,
         label="Block permutations for the p-value (0: none)",
@@ -73,6 +78,42 @@ class TrainingForm(forms.Form):
         super().__init__(*args, **kwargs)
         self.fields["feature_set"].choices = [
             (str(fs.pk), f"set {fs.pk} ({fs.n_rows} windows)") for fs in feature_sets]
+        # Read when the form is made, so that a learner added to the table is offered.
+        self.fields["learners"].choices = learner_choices()
+        self.fields["scheme"].choices = list(SCHEME_LABELS.items())
+        defaults = Scheme()
+        self.fields["scheme"].initial = defaults.name
+        self.fields["n_splits"].initial = defaults.n_splits
+
+    def clean(self):
+        """The spec checked by the science (without the feature table, which the service
+        adds); each problem on the field it concerns."""
+        data = super().clean()
+        if self.errors:
+            return data
+        try:
+            spec = self.spec()
+        except forms.ValidationError as exc:
+            self.add_error("spec_json" if data.get("spec_json", "").strip() else "members",
+                           exc)
+            return data
+        try:
+            TrainingSpec.from_dict(spec)
+        except SpecError as exc:
+            self.add_spec_errors(exc.errors)
+        return data
+
+    def add_spec_errors(self, errors):
+        """Put a spec's problems ({path: [messages]}) on the form: on the pasted spec when
+        there is one, else on the field that made the value (or above the form)."""
+        pasted = bool((self.data.get("spec_json") or "").strip())
+        for path, messages in errors.items():
+            field = "spec_json" if pasted else FIELD_FOR.get(path)
+            for message in messages:
+                if field and field in self.fields and not pasted:
+                    self.add_error(field, message)
+                else:
+                    self.add_error(field if pasted else None, f"{path}: {message}")
 
     def spec(self):
         data = self.cleaned_data

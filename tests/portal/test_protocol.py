@@ -35,7 +35,11 @@ def test_default_rating_bins_and_bands():
     (lambda p: p["qc"].update(bad_channel_share_review=0.5, bad_channel_share_fail=0.2),
      "qc.bad_channel_share_review"),
     (lambda p: p.update(tasks=[]), "tasks"),
-    (lambda p: p["passband"].update(l_freq_hz=50), "passband"),
+    (lambda p: p["passband"].update(l_freq_hz=50), "passband.l_freq_hz"),
+    (lambda p: p["passband"].update(l_freq_hz=0), "passband.l_freq_hz"),
+    (lambda p: p["features"].update(overlap=0.95), "features.overlap"),
+    (lambda p: p["features"].update(window_s=0.1), "features.window_s"),
+    (lambda p: p["qc"].update(min_duration_s=-1), "qc.min_duration_s"),
 ])
 def test_invalid_protocols_name_the_field(change, field):
     p = default_protocol()

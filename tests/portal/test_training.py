@@ -332,8 +332,14 @@ def test_specs_that_cannot_run_say_why(client, featured, tmp_path):
     with pytest.raises(TrainingRequestError) as caught:
         start_run(spec_for(featured, features={"include": ["*.no_such_feature.*"]}))
     assert "no_such_feature" in str(caught.value)
-    with pytest.raises(TrainingRequestError, match="unknown learner"):
+    with pytest.raises(TrainingRequestError, match=r"models\[0\]\.learner: give one of 'lda'"):
         start_run(spec_for(featured, models=[{"learner": "oracle"}]))
+    # Found at submission, not in the worker: "n_splits": "five" names the field.
+    with pytest.raises(TrainingRequestError) as caught:
+        start_run(spec_for(featured, validation={"scheme": "grouped_kfold",
+                                                 "n_splits": "five"}))
+    assert caught.value.errors == {
+        "validation.n_splits": ["give a whole number of at least 2; got 'five'"]}
     with pytest.raises(TrainingRequestError, match="resting baseline"):
         start_run(spec_for(featured, label={"kind": "condition"},
                            normalisation={"participant": "baseline"}))
@@ -353,7 +359,13 @@ def test_specs_that_cannot_run_say_why(client, featured, tmp_path):
     url = reverse("api:training")
     bad = client.post(url, data=json.dumps({"feature_set": featured.pk, "models": [
         {"learner": "oracle"}]}), content_type="application/json")
-    assert bad.status_code == 400 and "models[0]" in bad.json()["errors"]
+    assert bad.status_code == 400 and "models[0].learner" in bad.json()["errors"]
+    five = client.post(url, data=json.dumps(spec_for(featured, validation={
+        "scheme": "grouped_kfold", "n_splits": "five"})), content_type="application/json")
+    body = five.json()
+    assert five.status_code == 400 and body["field"] == "validation.n_splits"
+    assert body["error"] == "validation.n_splits: give a whole number of at least 2; got 'five'"
+    assert body["code"] == "bad_request" and body["status"] == 400
     good = client.post(url, data=json.dumps(spec_for(featured)), content_type="application/json")
     assert good.status_code == 201 and good.json()["state"] == "running"
     status = client.get(reverse("api:training_run", args=[good.json()["run"]]))
@@ -361,6 +373,11 @@ def test_specs_that_cannot_run_say_why(client, featured, tmp_path):
     path = tmp_path / "bad.json"
     path.write_text(json.dumps({"feature_set": featured.pk, "modles": []}))
     with pytest.raises(CommandError, match="modles"):
+        call_command("train", "--spec", str(path))
+    path.write_text(json.dumps(spec_for(featured, validation={"scheme": "grouped_kfold",
+                                                              "n_splits": "five"})))
+    with pytest.raises(CommandError, match="validation.n_splits: give a whole number of at "
+                                           "least 2; got 'five'"):
         call_command("train", "--spec", str(path))
 
 
