@@ -63,6 +63,10 @@ class StorageFull(JobError):
         self.reason = reason
 
 
+class BlobStoreError(Exception):
+    """The configured store cannot be reached or used; the message says which setting."""
+
+
 class BlobIntegrityError(Exception):
     """Bytes read or written did not hash to the name they were stored under."""
 
@@ -226,6 +230,20 @@ class LocalStore:
 
     def remove(self, entry):
         entry.handle.unlink(missing_ok=True)
+
+    def check(self, *, create=False):
+        """Write, read and remove a probe file; returns what was checked."""
+        with storage_errors("checking the blob store"):
+            self.root.mkdir(parents=True, exist_ok=True)
+            tmp, sink = _incoming(self.root)
+            with sink:
+                sink.write(b"probe")
+            try:
+                if Path(tmp).read_bytes() != b"probe":
+                    raise BlobIntegrityError(f"{tmp} did not read back as written")
+            finally:
+                os.unlink(tmp)
+        return f"{self.describe()}: writable"
 
 
 # --- An S3-compatible object store ------------------------------------------------------
@@ -526,6 +544,39 @@ class S3Store:
                 if _error_code(exc)[0] != "NoSuchUpload":
                     raise
 
+    def check(self, *, create=False):
+        """Reach the bucket (making it with ``create``), then write, read and remove a probe
+        object under incoming/; returns what was checked. Raises BlobStoreError otherwise."""
+        from botocore.exceptions import BotoCoreError, ClientError
+
+        made = False
+        try:
+            try:
+                self.client.head_bucket(Bucket=self.bucket)
+            except ClientError as exc:
+                if not (create and _is_missing(exc)):
+                    raise
+                self.client.create_bucket(Bucket=self.bucket)
+                made = True
+            key = self._incoming_key()
+            self.client.put_object(Bucket=self.bucket, Key=key, Body=b"probe",
+                                   ContentMD5=_md5(b"probe"))
+            try:
+                body = self.client.get_object(Bucket=self.bucket, Key=key)["Body"].read()
+            finally:
+                self.client.delete_object(Bucket=self.bucket, Key=key)
+        except (ClientError, BotoCoreError) as exc:
+            code, status = _error_code(exc)
+            hint = ("the bucket does not exist: make it, or run check_blob_store "
+                    "--create-bucket" if _is_missing(exc) else
+                    "check CAIRN_S3_ACCESS_KEY_ID and CAIRN_S3_SECRET_ACCESS_KEY"
+                    if status in (401, 403) else "check CAIRN_S3_ENDPOINT_URL and the network")
+            raise BlobStoreError(f"cannot use {self.describe()}: {exc}; {hint}") from exc
+        if body != b"probe":
+            raise BlobIntegrityError(f"{key} in {self.describe()} did not read back as written")
+        return f"{self.describe()}{' (bucket made)' if made else ''}: writable, prefix " \
+               f"{self.prefix!r}"
+
 
 def _md5(data):
     """Content-MD5 of a request body: the store refuses the request if the body differs."""
@@ -577,6 +628,11 @@ def store():
         if key not in _stores:
             _stores[key] = S3Store(**config)
         return _stores[key]
+
+
+def check_store(*, create=False):
+    """Check the configured store can be written and read (``check_blob_store``)."""
+    return store().check(create=create)
 
 
 def put_stream(stream):

@@ -313,3 +313,20 @@ def settings_blob_root():
 
     os.makedirs(settings.BLOB_ROOT, exist_ok=True)
     return settings.BLOB_ROOT
+
+
+def test_check_blob_store_command(store, settings):
+    from django.core.management import CommandError, call_command
+
+    out = io.StringIO()
+    call_command("check_blob_store", stdout=out)
+    assert "writable" in out.getvalue() and leftovers(store) == []
+    if store.kind == "s3":
+        settings.S3_BUCKET = f"{store.bucket}-new"
+        with pytest.raises(CommandError, match="the bucket does not exist: make it, or run "
+                                               "check_blob_store --create-bucket"):
+            call_command("check_blob_store", stdout=io.StringIO())
+        out = io.StringIO()
+        call_command("check_blob_store", "--create-bucket", stdout=out)
+        assert "(bucket made): writable" in out.getvalue()
+        assert blobs.put_bytes(b"into the new bucket")[0] in stored_names(blobs.store())

@@ -16,13 +16,18 @@ REPO = Path(__file__).resolve().parents[2]
 def test_compose_describes_the_deployment():
     compose = yaml.safe_load((REPO / "docker-compose.yml").read_text())
     services = compose["services"]
-    assert set(services) == {"web", "worker", "beat", "db", "redis"}
-    assert {"database", "blobs"} <= set(compose["volumes"])
+    assert set(services) == {"web", "worker", "beat", "db", "redis", "objects"}
+    assert {"database", "blobs", "objects"} <= set(compose["volumes"])
     assert any(v.startswith("database:") for v in services["db"]["volumes"])
+    assert any(v.startswith("objects:") for v in services["objects"]["volumes"])
     for name in ("web", "worker", "beat"):
         env = services[name]["environment"]
         assert env["DATABASE_URL"].startswith("postgres://") and "@db:" in env["DATABASE_URL"]
         assert env["CELERY_BROKER_URL"].startswith("redis://redis:")
+        # Blobs are in the object store service, which every process reaches by its name.
+        assert env["CAIRN_BLOB_STORE"] == "s3" and "CAIRN_BLOB_ROOT" not in env
+        assert "//objects:" in env["CAIRN_S3_ENDPOINT_URL"] and "objects" in services[name][
+            "depends_on"]
         assert any(v.startswith("blobs:") for v in services[name]["volumes"])
     # A worker service without ports or a fixed container name can be scaled out.
     assert "ports" not in services["worker"] and "container_name" not in services["worker"]
