@@ -74,6 +74,7 @@ INSTALLED_APPS = [
     "portal.quality",
     "portal.features",
     "portal.training",
+    "portal.lineage",
     "portal.dashboard",
     "portal.demo",
 ]

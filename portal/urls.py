@@ -11,6 +11,7 @@ urlpatterns = [
     path("training/", include("portal.training.urls")),
     path("jobs/", include("portal.jobs.urls")),
     path("audit/", include("portal.audit.urls")),
+    path("audit/", include("portal.lineage.urls")),
     path("api/v1/", include("portal.api_urls")),
     path("operator/", admin.site.urls),
 ]

@@ -1,21 +1,15 @@
-"""Who may read which part of the audit trail, lineage and reproductions.
+"""Who may read which part of the audit trail.
 
 An event is visible when its (site, study) pair is; an event of a whole study (no site) to
 those who see the whole study; an event of a site with no study to those who see that site
-in some study; and every person sees their own actions.
+in some study; and every person sees their own actions. (Lineage and reproductions have
+their rules in portal/lineage/access.py.)
 """
 
 from django.db.models import Q
-from django.http import Http404
 
-from portal.accounts.permissions import Action, pairs_q, scope_of
-from portal.audit.lineage import resolve
-from portal.audit.models import Event, Reproduction
-from portal.audit.reproduce import subject_object
-from portal.datasets.access import version_visible
-from portal.features.access import may_run_on, may_see
-from portal.quality.access import qc_run_visible
-from portal.training.access import release_sites
+from portal.accounts.permissions import pairs_q, scope_of
+from portal.audit.models import Event
 
 
 def visible_events(user):
@@ -28,47 +22,3 @@ def visible_events(user):
         | Q(study__isnull=True, site_id__in=sorted(scope.sites()))
         | Q(actor=user)
     )
-
-
-def lineage_object(user, kind, object_id):
-    """(object, site ids shown in full or None for all) if the user may see its lineage;
-    404 otherwise. Whoever sees a feature set sees everything it was made from; a site's
-    people see a release offered to their site, other sites summarised."""
-    try:
-        obj = resolve(f"{kind}:{object_id}")
-    except ValueError:
-        raise Http404("no such object") from None
-    if kind == "version":
-        if version_visible(user, obj):
-            return obj, None
-        raise Http404("no such object")
-    feature_set = obj if kind == "features" else (
-        obj.feature_set if kind == "training" else obj.run.feature_set)
-    if may_see(user, feature_set):
-        return obj, None
-    if kind == "release":
-        mine = release_sites(user, obj)
-        if mine:
-            return obj, {s.pk for s in mine}
-    raise Http404("no such object")
-
-
-def reproduction_subject_visible(user, kind, obj, *, to_start=False):
-    """A feature set or quality result may be seen (or, ``to_start``, computed again)."""
-    if kind == "features":
-        return may_run_on(user, obj) if to_start else may_see(user, obj)
-    if kind == "qc":
-        return qc_run_visible(user, obj, Action.RUN_JOBS if to_start else Action.VIEW)
-    return False
-
-
-def reproduction_job_visible(user, target_id):
-    reproduction = Reproduction.objects.filter(pk=target_id).first()
-    if reproduction is None:
-        return False
-    try:
-        kind, obj = subject_object(reproduction.subject)
-    except ValueError:
-        return False
-    return reproduction_subject_visible(user, kind, obj)
-

@@ -112,24 +112,3 @@ class PendingLink(models.Model):
     event = models.OneToOneField(Event, on_delete=models.CASCADE, related_name="+",
                                  primary_key=True)
 
-
-class Reproduction(models.Model):
-    """A stored result computed again from its record (inputs, settings, code) in a fresh
-    worker, and whether the new result's canonical hash equals the stored one."""
-
-    subject = models.CharField(max_length=40, db_index=True)  # "features:5", "qc:12"
-    original_sha256 = models.CharField(max_length=64)
-    new_sha256 = models.CharField(max_length=64, blank=True)
-    matches = models.BooleanField(null=True)
-    details = models.JSONField(default=dict, blank=True)
-    error = models.TextField(blank=True)
-    created_by = models.ForeignKey(settings.AUTH_USER_MODEL, null=True, blank=True,
-                                   on_delete=models.SET_NULL, related_name="+")
-    created_at = models.DateTimeField(default=timezone.now)
-    finished_at = models.DateTimeField(null=True, blank=True)
-
-    class Meta:
-        ordering = ["-created_at", "-id"]
-
-    def __str__(self):
-        return f"reproduction of {self.subject}"

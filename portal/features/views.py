@@ -9,7 +9,6 @@ from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, can, get_visible_study, require
-from portal.audit import reproduce
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features import plots
@@ -166,9 +165,7 @@ def set_detail(request, set_id):
         "effects": feature_set.site_effects, "column": chosen,
         "feature_columns": [n for n, c in columns.items() if c.get("kind") == "feature"],
         "may_download": may_download(request.user, feature_set, sites) and state == "done",
-        **reproduce.page_context("features", feature_set,
-                                 may_start=state == "done" and may_run_on(
-                                     request.user, feature_set, sites)),
+        "may_reproduce": state == "done" and may_run_on(request.user, feature_set, sites),
     })
 
 

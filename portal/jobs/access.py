@@ -21,7 +21,7 @@ TARGET_RULES = {
     "quality.qcround": "portal.quality.access:round_job_visible",
     "features.featureset": "portal.features.access:set_job_visible",
     "training.trainingrun": "portal.training.access:run_job_visible",
-    "audit.reproduction": "portal.audit.access:reproduction_job_visible",
+    "lineage.reproduction": "portal.lineage.access:reproduction_job_visible",
 }
 
 

@@ -53,7 +53,7 @@ KINDS = {
         JobKind("training.finish", "training run: statistics and releases",
                 "portal.training.jobs:run_finish", queue="training"),
         JobKind("audit.reproduce", "compute a stored result again from its record",
-                "portal.audit.jobs:run_reproduce", queue="training"),
+                "portal.lineage.jobs:run_reproduce", queue="training"),
     )
 }
 

@@ -81,9 +81,7 @@ def new_run(request, study_slug):
         except django_forms.ValidationError as exc:
             form.add_error(None, exc)
         except TrainingRequestError as exc:
-            for key, problems in exc.errors.items():
-                for problem in problems:
-                    form.add_error(None, f"{key}: {problem}")
+            form.add_spec_errors(exc.errors)  # on the fields they concern
     rows = []
     return render(request, "training/study.html", {"study": study, "rows": rows, "form": form},
                   status=400)
@@ -173,7 +171,7 @@ def run_detail(request, training_id):
 
 def _rerun_check(run, state):
     """For a re-run that is done: its fingerprint against the original's."""
-    from portal.audit.reproduce import training_fingerprint
+    from portal.training.fingerprint import training_fingerprint
 
     original = run.rerun_of
     if original is None or state != "done" or original.state != "done":

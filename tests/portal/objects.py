@@ -119,7 +119,7 @@ def training_of(study, feature_set, *, trained_on_site=None, state="approved"):
 
 
 def reproduction_of(feature_set):
-    from portal.audit.models import Reproduction
+    from portal.lineage.models import Reproduction
 
     return Reproduction.objects.create(subject=f"features:{feature_set.pk}",
                                        original_sha256=feature_set.table_sha256)

@@ -108,10 +108,10 @@ RULES = {
     "jobs:progress": Rule(),
     "audit:events": Rule(level="list"),
     "audit:export": Rule(level="list"),
-    "audit:lineage": Rule(),
-    "audit:lineage_prov": Rule(),
-    "audit:derived": Rule(),
-    "audit:reproduce": Rule(need="run", method="post"),
+    "lineage:page": Rule(),
+    "lineage:prov": Rule(),
+    "lineage:derived": Rule(),
+    "lineage:reproduce": Rule(need="run", method="post"),
     "api:me": Rule(level="list"),
     "api:job": Rule(),
     "api:uploads": Rule(need="upload", method="post", level="study"),
@@ -179,15 +179,15 @@ def _variants(name, data):
     keys = list(pattern.pattern.converters)
     rule = RULES[name]
     kwargs = {k: data[k] for k in keys}
-    if name in ("audit:lineage", "audit:lineage_prov"):
+    if name in ("lineage:page", "lineage:prov"):
         choices = [{"lineage_kind": kind, "object_id": data["objects"][kind].pk}
                    for kind in LINEAGE_KINDS]
-    elif name == "audit:derived":
+    elif name == "lineage:derived":
         choices = [{"lineage_kind": kind, "object_id": data["objects"][kind].pk}
                    for kind in DERIVED_KINDS]
     elif name in ("jobs:detail", "jobs:progress", "api:job"):
         choices = [{"job_id": job} for job in data["jobs"].values()]
-    elif name == "audit:reproduce":
+    elif name == "lineage:reproduce":
         choices = [{"subject_kind": "features", "object_id": data["set_id"]},
                    {"subject_kind": "qc", "object_id": data["run_id"]}]
     else:

@@ -120,7 +120,7 @@ def test_a_site_only_release_of_another_site_is_not_downloadable(client, two_sit
         assert client.get(url).status_code == 404, part
         url = reverse("training:release_file", args=["a1", pooled_release.pk, part])
         assert client.get(url).status_code == 200, part
-    for view in ("audit:lineage", "audit:lineage_prov"):
+    for view in ("lineage:page", "lineage:prov"):
         assert client.get(reverse(view, args=["release", release.pk])).status_code == 404
         assert client.get(reverse(view, args=["release", pooled_release.pk])).status_code == 200
     listing = client.get(reverse("training:releases", args=["a1"])).content.decode()
@@ -185,7 +185,7 @@ def test_every_job_target_has_an_access_rule():
                "features.combine": "features.featureset",
                "training.run": "training.trainingrun", "training.fold": "training.trainingrun",
                "training.finish": "training.trainingrun",
-               "audit.reproduce": "audit.reproduction"}
+               "audit.reproduce": "lineage.reproduction"}
     assert kinds <= set(targets), f"jobs queued about objects this test does not know: " \
                                   f"{sorted(kinds - set(targets))}"
     assert set(targets) <= set(KINDS)

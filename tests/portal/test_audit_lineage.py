@@ -17,15 +17,16 @@ from django.urls import reverse
 
 from portal.audit.chain import seal_pending, verify
 from portal.audit.events import canonical_sha256
-from portal.audit.models import Event, Reproduction
-from portal.audit.reproduce import start as start_reproduction
-from portal.audit.reproduce import training_fingerprint
+from portal.audit.models import Event
 from portal.datasets import blobs
 from portal.datasets.models import DatasetVersion, Upload
 from portal.features.models import FeatureSet
+from portal.lineage.models import Reproduction
+from portal.lineage.reproduce import start as start_reproduction
 from portal.quality.models import ChannelOverride, QCRound, QCRun
 from portal.quality.services import set_override
 from portal.studies.models import ProtocolVersion, save_protocol
+from portal.training.fingerprint import training_fingerprint
 from portal.training.models import ModelRelease, TrainingRun
 from portal.training.services import approve, rerun
 from tests.helpers import member, run_all_pending, run_pending
@@ -235,11 +236,11 @@ def test_lineage_is_scoped_and_summarises_other_sites(client, walked):
     # own data, the other site as a summary without files or participants.
     manager = member(f"dm2-{site.slug}", role="data_manager", site_slug=site.slug)[0]
     client.force_login(manager)
-    page = client.get(reverse("audit:lineage", args=["release", release.pk]))
+    page = client.get(reverse("lineage:page", args=["release", release.pk]))
     assert page.status_code == 200
     body = page.content.decode()
     assert "as summaries" in body and theirs.manifest_sha256 in body
-    prov = client.get(reverse("audit:lineage_prov", args=["release", release.pk]))
+    prov = client.get(reverse("lineage:prov", args=["release", release.pk]))
     text = prov.content.decode()
     document = ProvDocument.deserialize(content=text, format="json")
     assert document.get_records()
@@ -252,16 +253,16 @@ def test_lineage_is_scoped_and_summarises_other_sites(client, walked):
     assert files == my_files  # no file (so no participant's recording) of the other site
     # The training run and the feature set themselves stay closed to them, and so does the
     # other site's version in both directions.
-    for name, args in (("audit:lineage", ["training", walked["run"].pk]),
-                       ("audit:lineage", ["features", walked["feature_set"].pk]),
-                       ("audit:lineage", ["version", theirs.pk]),
-                       ("audit:derived", ["version", theirs.pk]),
-                       ("audit:derived", ["features", walked["feature_set"].pk])):
+    for name, args in (("lineage:page", ["training", walked["run"].pk]),
+                       ("lineage:page", ["features", walked["feature_set"].pk]),
+                       ("lineage:page", ["version", theirs.pk]),
+                       ("lineage:derived", ["version", theirs.pk]),
+                       ("lineage:derived", ["features", walked["feature_set"].pk])):
         assert client.get(reverse(name, args=args)).status_code == 404, (name, args)
 
     # Downstream from their own version: the pooled feature set and its run appear as
     # summaries (sites and hashes, no link); the release they may use is linked.
-    derived = client.get(reverse("audit:derived", args=["version", mine.pk])).content.decode()
+    derived = client.get(reverse("lineage:derived", args=["version", mine.pk])).content.decode()
     feature_set = walked["feature_set"]
     assert feature_set.table_sha256 in derived and "(summary)" in derived
     assert reverse("features:detail", args=[feature_set.pk]) not in derived
@@ -270,20 +271,20 @@ def test_lineage_is_scoped_and_summarises_other_sites(client, walked):
     # The study lead sees the whole lineage, every file of both sites and each step's
     # parameters (the spec, the feature parameters, the quality settings).
     client.force_login(walked["lead"])
-    text = client.get(reverse("audit:lineage_prov", args=["release", release.pk])
+    text = client.get(reverse("lineage:prov", args=["release", release.pk])
                       ).content.decode()
     assert all(sha in text for sha in my_files | their_files)
-    body = client.get(reverse("audit:lineage", args=["release", release.pk])).content.decode()
+    body = client.get(reverse("lineage:page", args=["release", release.pk])).content.decode()
     for name in ("spec", "params", "settings"):
         assert f"<summary>{name}</summary>" in body
     assert "grouped_kfold" in body
-    derived = client.get(reverse("audit:derived", args=["upload", mine.upload_id])
+    derived = client.get(reverse("lineage:derived", args=["upload", mine.upload_id])
                          ).content.decode()
     for expected in (f"dataset version {mine.number}", f"feature set {feature_set.pk}",
                      f"training run {walked['run'].pk}", f"model release {release.pk}"):
         assert expected in derived
     recording = walked["recording"]
-    derived = client.get(reverse("audit:derived", args=["recording", recording.pk])
+    derived = client.get(reverse("lineage:derived", args=["recording", recording.pk])
                          ).content.decode()
     assert "quality result" in derived and f"feature set {feature_set.pk}" in derived
 
@@ -309,7 +310,7 @@ def test_results_computed_again_from_the_record(client, walked):
 
     # A feature set: every recording recomputed without reusing a part, the same table.
     client.force_login(lead)
-    response = client.post(reverse("audit:reproduce", args=["features", feature_set.pk]))
+    response = client.post(reverse("lineage:reproduce", args=["features", feature_set.pk]))
     assert response.status_code == 302
     assert run_pending("audit.reproduce") == 1
     item = Reproduction.objects.get(subject=f"features:{feature_set.pk}")

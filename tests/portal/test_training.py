@@ -235,10 +235,10 @@ def test_rerun_reproduces_and_the_command_reports(featured, tmp_path):
     site = featured.sites().order_by("slug").first()
     reader = Client()
     reader.force_login(member("lead", role="study_lead", site_slug=site.slug)[0])
-    page = reader.get(reverse("audit:lineage", args=["training", first.pk]))
+    page = reader.get(reverse("lineage:page", args=["training", first.pk]))
     assert page.status_code == 200 and f"cairn:featureset-{featured.pk}" in page.content.decode()
     reader.force_login(member("dm-one", role="data_manager", site_slug=site.slug)[0])
-    assert reader.get(reverse("audit:lineage", args=["training", first.pk])).status_code == 404
+    assert reader.get(reverse("lineage:page", args=["training", first.pk])).status_code == 404
 
     # The command prints one JSON object with per-fold and pooled scores and the release.
     path = tmp_path / "spec.json"

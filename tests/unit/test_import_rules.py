@@ -312,11 +312,6 @@ def test_handler_modules_are_imported_only_by_handler_modules():
           "web-side modules importing a job handler module")
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="until lineage moves out: lineage, reproduction and their views still live in "
-           "portal/audit and import datasets, quality, features, training and jobs",
-)
 def test_audit_imports_no_app_but_accounts():
     _fail(audit_breaks(IMPORTS), "portal.audit imports an app other than accounts")
 

@@ -12,14 +12,16 @@ import io
 
 from django.utils import timezone
 
+from cairn_science.features.pipeline import frame_to_parquet, read_parquet
 from portal.audit.events import canonical_sha256, record
-from portal.audit.models import Reproduction
+from portal.datasets.models import Recording
+from portal.features.jobs import build_table, compute_part
+from portal.lineage.models import Reproduction
+from portal.lineage.reproduce import subject_object
+from portal.quality.jobs import compute_qc
 
 
 def _features(feature_set, ctx):
-    from cairn_science.features.pipeline import frame_to_parquet, read_parquet
-    from portal.features.jobs import build_table, compute_part
-
     items = list(feature_set.items.select_related("part", "recording__version__site")
                  .order_by("recording__version__site__slug", "recording__path"))
     frames, parts = {}, []
@@ -40,9 +42,6 @@ def _features(feature_set, ctx):
 
 
 def _quality(run, ctx):
-    from portal.datasets.models import Recording
-    from portal.quality.jobs import compute_qc
-
     recording = (Recording.objects.filter(sha256=run.recording_sha256, version__site=run.site)
                  .select_related("version").order_by("id").first())
     if recording is None:
@@ -58,8 +57,6 @@ def _quality(run, ctx):
 
 
 def run_reproduce(ctx):
-    from portal.audit.reproduce import subject_object
-
     reproduction = Reproduction.objects.get(pk=ctx.job.target_id)
     kind, obj = subject_object(reproduction.subject)
     try:

@@ -2,7 +2,7 @@ from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
-from portal.audit.lineage import provenance_json, resolve
+from portal.lineage.prov import provenance_json, resolve
 
 
 class Command(BaseCommand):

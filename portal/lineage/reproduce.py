@@ -1,15 +1,18 @@
 """Asking for a stored result to be computed again from its record, and what it showed.
 
-Feature sets and quality results are recomputed by the ``audit.reproduce`` job; a
-training run is repeated as a new run from its stored spec, and :func:`training_fingerprint`
-compares the two runs' fold scores and model digests.
+Feature sets and quality results are recomputed by the ``audit.reproduce`` job (the kind
+keeps the name it had when this lived in the audit app, so stored jobs still resolve); a
+training run is repeated as a new run from its stored spec, and
+:func:`portal.training.fingerprint.training_fingerprint` compares the two runs' fold scores
+and model digests.
 """
 
 from django.db import transaction
 
 from portal.audit.events import canonical_sha256, record
-from portal.audit.models import Reproduction
+from portal.jobs.models import Job
 from portal.jobs.services import enqueue
+from portal.lineage.models import Reproduction
 
 SUBJECTS = {"features": "features.FeatureSet", "qc": "quality.QCRun"}
 
@@ -58,24 +61,12 @@ def latest(kind, obj):
     return Reproduction.objects.filter(subject=f"{kind}:{obj.pk}").first()
 
 
-def training_fingerprint(run):
-    """sha256 over a run's fold scores (every model, purpose and fold) and its models'
-    digests: equal for two runs exactly when they gave the same numbers and models."""
-    folds = [[f.model, f.purpose, f.fold, f.result] for f in
-             run.folds.order_by("model", "purpose", "fold")]
-    models = sorted([r.model, r.kind, r.trained_on_site_id or 0, r.model_digest]
-                    for r in run.releases.all())
-    return canonical_sha256({"folds": folds, "models": models})
-
-
 def page_context(kind, obj, *, may_start):
     """What an object's page shows of its latest reproduction (and its job)."""
-    from portal.jobs.models import Job
-
     reproduction = latest(kind, obj) if obj is not None else None
     job = None
     if reproduction is not None:
-        job = Job.objects.filter(target_type="audit.reproduction",
+        job = Job.objects.filter(target_type=Reproduction._meta.label_lower,
                                  target_id=str(reproduction.pk)).order_by("-id").first()
     return {"reproduction": reproduction, "reproduction_job": job,
             "reproduce_kind": kind, "reproduce_object": obj, "may_reproduce": may_start}

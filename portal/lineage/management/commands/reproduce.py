@@ -2,9 +2,9 @@ import json
 
 from django.core.management.base import BaseCommand, CommandError
 
-from portal.audit import reproduce
-from portal.audit.models import Reproduction
 from portal.commands import wait_until_settled
+from portal.lineage import reproduce
+from portal.lineage.models import Reproduction
 
 
 class Command(BaseCommand):

@@ -186,7 +186,7 @@ class Walk:
             release_sites(self.user, release))
         node.label = f"model release {release.pk} ({release.model}, {release.kind})"
         node.facts = [f"state {release.state}", f"model sha256 {release.model_sha256}"]
-        node.url = reverse("audit:lineage", kwargs={"lineage_kind": "release",
+        node.url = reverse("lineage:page", kwargs={"lineage_kind": "release",
                                                     "object_id": release.pk}) \
             if node.visible else None
 
