@@ -10,7 +10,10 @@ the same run (the reference).
 
     .venv/bin/python bench/web.py [--seconds 30] [--database-url postgres://...]
 
-Needs the PostgreSQL server the test suite uses; writes nothing outside its own databases.
+Needs the PostgreSQL server the test suite uses; writes nothing outside its own databases,
+which it makes and drops: CAIRN_BENCH_WEB_DATABASES names them (two names, comma-separated,
+for the 100- and the 1,000-recording study), else <database of --database-url>_web_100 and
+_web_1000, so two people on one server do not drop each other's.
 """
 
 import argparse
@@ -155,8 +158,23 @@ def quantile(values, q):
     return statistics.quantiles(values, n=100, method="inclusive")[q - 1]
 
 
-def measure(size, args, base):
-    name = f"cairn_bench_web_{size}"
+def database_names(database_url):
+    """{size: database name} of the databases this run makes and drops."""
+    own = database_url.rpartition("/")[2].partition("?")[0]
+    given = os.environ.get("CAIRN_BENCH_WEB_DATABASES", "").strip()
+    names = ([n.strip() for n in given.split(",")] if given else
+             [f"{own}_web_{size}" for size in SIZES])
+    if len(names) != len(SIZES) or len(set(names)) != len(SIZES) or not all(
+            re.fullmatch(r"[a-z_][a-z0-9_]{0,62}", n) for n in names):
+        raise SystemExit(f"CAIRN_BENCH_WEB_DATABASES must name {len(SIZES)} different databases "
+                         f"(lower-case letters, digits, _), comma-separated; got {given!r}")
+    if own in names:
+        raise SystemExit(f"the bench drops its databases: {own} (of --database-url) must not "
+                         "be one of them")
+    return dict(zip(SIZES, names, strict=True))
+
+
+def measure(size, args, base, name):
     recreate(base, name)
     env = dict(os.environ, DATABASE_URL=f"{base}/{name}", CAIRN_HTTPS="0", DEBUG="0",
                CAIRN_VAR_DIR=str(REPO / "var" / "bench-web" / str(size)))
@@ -202,7 +220,8 @@ def main():
         "DATABASE_URL", "postgres://postgres@127.0.0.1:5432/cairn"))
     args = parser.parse_args()
     base = args.database_url.rpartition("/")[0]
-    results = {size: measure(size, args, base) for size in SIZES}
+    names = database_names(args.database_url)
+    results = {size: measure(size, args, base, names[size]) for size in SIZES}
     small, large = results[SIZES[0]], results[SIZES[1]]
     print(f"gunicorn, 2 workers, PostgreSQL; {args.seconds:g} s per load; study lead signed in")
     print(f"{'page':<14}{'recordings':>11}{'p50 ms':>9}{'p95 ms':>9}{'requests':>10}")
