@@ -8,9 +8,9 @@ from functools import lru_cache
 from django.utils import timezone
 
 from portal.audit.events import record
-from portal.audit.reproduce import training_fingerprint
 from portal.datasets import blobs
 from portal.jobs.services import JobError, enqueue
+from portal.training.fingerprint import training_fingerprint
 from portal.training.models import FoldScore, ModelRelease, RunState, TrainingRun
 
 CAUTION = ("Research use only. Not a medical device; not for decisions about any person's "
