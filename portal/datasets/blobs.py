@@ -626,6 +626,8 @@ def store():
     key = (os.getpid(), *config.values())
     with _stores_lock:
         if key not in _stores:
+            if len(_stores) >= 8:  # settings changed many times (tests): forget old clients
+                _stores.clear()
             _stores[key] = S3Store(**config)
         return _stores[key]
 
