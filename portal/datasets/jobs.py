@@ -29,6 +29,7 @@ from portal.datasets.services import (
     discard_staging_on_commit,
     finish_upload,
     hold_for_confirmation,
+    mark_untouched,
     mark_validating,
     pending_removals,
     snapshot_hints,
@@ -131,10 +132,13 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
             except ArchiveError as exc:
                 return None, {}, [], {"errors": [_problem(upload.label, str(exc), "archive")],
                                       "warnings": []}
+            untouched = set()
             if upload.mode == UploadMode.ADDITION and parent is not None:
                 root.mkdir()
                 _materialise(parent, root)
-                for relative in list_files(incoming):
+                sent = list_files(incoming)
+                untouched = set(parent.files.values_list("path", flat=True)) - set(sent)
+                for relative in sent:
                     target = root / relative
                     target.parent.mkdir(parents=True, exist_ok=True)
                     shutil.move(str(incoming / relative), target)
@@ -156,6 +160,7 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
                                                      f"checked {done} of {total} recordings"),
         )
         result = report.as_dict()
+        result["warnings"] = mark_untouched(result["warnings"], untouched)
         if not report.ok:
             return None, {}, [], result
         confirmed_on = (upload.pending_removals or {}).get("parent")
@@ -217,7 +222,8 @@ def _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, resul
                       level=b.get("level") or "")
                 for b in info.get("blocks", [])
             ])
-        finish_upload(upload, errors=[], warnings=result["warnings"])
+        unchanged = {p for p in parent_files if files.get(p) == parent_files[p]}
+        finish_upload(upload, errors=[], warnings=mark_untouched(result["warnings"], unchanged))
         discard_staging_on_commit(upload)
         start_round(version)
         job.result = {"dataset_version": version.pk, "recordings": len(result["recordings"]),

@@ -693,3 +693,32 @@ def restore_version(source, *, user, token=None, allow_removals=False):
         )
         start_round(version, user=user)
     return version
+
+
+# --- the upload report: what this upload brought ---------------------------------------------
+
+def mark_untouched(warnings, untouched):
+    """Warnings about files this upload left as they were (``untouched`` paths) get
+    ``"untouched": true``, so the report can fold them into one line."""
+    return [dict(w, untouched=True) if w.get("path") in untouched else w for w in warnings]
+
+
+def warning_report(warnings, *, examples=5):
+    """(groups, untouched count): the warnings about what this upload brought, repeated ones
+    (same kind of problem and field) grouped with their count, files and first message; the
+    rest only counted."""
+    shown = [w for w in warnings if not w.get("untouched")]
+    groups = {}
+    for problem in shown:
+        key = (problem.get("code") or problem.get("message", ""), problem.get("field") or "")
+        groups.setdefault(key, []).append(problem)
+    out = []
+    for (code, field), items in groups.items():
+        paths = list(dict.fromkeys(p.get("path") or "(the upload)" for p in items))
+        out.append({
+            "code": code if items[0].get("code") else "", "field": field, "count": len(items),
+            "message": items[0].get("message", ""), "path": items[0].get("path") or "",
+            "line": items[0].get("line"), "paths": paths[:examples],
+            "more_paths": max(0, len(paths) - examples), "items": items,
+        })
+    return out, len(warnings) - len(shown)

@@ -34,6 +34,7 @@ from portal.datasets.services import (
     restore_version,
     safe_relative_path,
     submit_staged,
+    warning_report,
 )
 from portal.datasets.uploadhandler import StagingUploadHandler, csrf_refusal
 from portal.jobs.models import Job
@@ -60,10 +61,12 @@ def _upload_context(user, upload_id):
     upload = visible_upload(user, upload_id)
     version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
     held = upload.state == UploadState.HELD
+    groups, untouched = warning_report(upload.warnings)
     return {"upload": upload, "job": upload_job(upload), "version": version,
             "removals": upload.pending_removals if held else None,
             "removal_words": removal_words(upload.pending_removals) if held else "",
-            "may_confirm": held and may_upload(user, upload.site, upload.study)}
+            "may_confirm": held and may_upload(user, upload.site, upload.study),
+            "warning_groups": groups, "untouched_warnings": untouched}
 
 
 @access("checked")

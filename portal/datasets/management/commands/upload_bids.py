@@ -6,7 +6,12 @@ from django.core.management.base import BaseCommand, CommandError
 
 from portal.accounts.setup import SetupError, get_site, get_study
 from portal.datasets.models import Upload, UploadMode, UploadState
-from portal.datasets.services import UploadError, removal_words, submit_path
+from portal.datasets.services import (
+    UploadError,
+    removal_words,
+    submit_path,
+    warning_report,
+)
 
 
 class Command(BaseCommand):
@@ -108,8 +113,18 @@ class Command(BaseCommand):
                 self.stdout.write(f"  would remove {item}")
         for problem in upload.errors:
             self.stdout.write(f"  error   {_where(problem)}: {problem['message']}")
-        for problem in upload.warnings:
-            self.stdout.write(f"  warning {_where(problem)}: {problem['message']}")
+        groups, untouched = warning_report(upload.warnings)
+        for group in groups:
+            if group["count"] == 1:
+                problem = group["items"][0]
+                self.stdout.write(f"  warning {_where(problem)}: {problem['message']}")
+            else:
+                more = f" and {group['more_paths']} more" if group["more_paths"] else ""
+                self.stdout.write(f"  warning x{group['count']} in {', '.join(group['paths'])}"
+                                  f"{more}: {group['message']}")
+        if untouched:
+            self.stdout.write(f"  ({untouched} more warning(s) about files this upload left "
+                              "as they were; --json lists them)")
 
 
 def _where(problem):
