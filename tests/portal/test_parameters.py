@@ -59,6 +59,10 @@ def test_feature_parameters_keep_their_digest():
     study, _ = add_study("rail", name="Rail")
     params = resolve_params(study, _pinned(study), {"preprocessing": {"window_s": 2.0}})
     assert canonical_sha256(params) == PINNED["features"]
+    # the worker rebuilds the same settings from the stored plain form
+    from cairn_science.signal.prepare import PrepSettings
+
+    assert PrepSettings.from_dict(params["preprocessing"]).as_dict() == params["preprocessing"]
 
 
 # One overlap rule, the same words everywhere ------------------------------------------------

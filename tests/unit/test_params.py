@@ -238,3 +238,24 @@ def test_make_learner_applies_the_table_limits():
     # a parameter the table does not constrain is checked by scikit-learn's own limits
     problems = param_problems("logistic", {"tol": -1.0})
     assert [p.field for p in problems] == ["params.tol"]
+
+
+def test_an_unchanged_spec_keeps_its_stored_digest():
+    """A run stores its spec's plain form and its digest; the digest below was computed by
+    the spec check before the limits moved to the parameter objects (commit 7ee2433's
+    parent), so an unchanged spec must still give it."""
+    from cairn_science.canonical_json import canonical_sha256
+
+    spec = {"feature_set": 4, "label": {"kind": "level"},
+            "validation": {"scheme": "grouped_kfold", "n_splits": 3},
+            "models": [{"learner": "lda"}, {"learner": "logistic", "params": {"C": 0.5}},
+                       {"ensemble": "bagging", "learner": "lda", "n_members": 3},
+                       {"ensemble": "stacking", "members": ["lda", "logistic"],
+                        "n_inner_splits": 2}],
+            "comparison": {"strategies": ["bagging"], "learners": ["knn"], "members": [5]},
+            "statistics": {"paired_test": True, "paired_splits": 3, "paired_repeats": 2,
+                           "permutations": 4, "bootstrap": 200}, "seed": 3}
+    stored = TrainingSpec.from_dict(spec).as_dict()
+    assert canonical_sha256(stored) == (
+        "c7a67eb5aec18e2f73aa50f0bfa0facafa5582a10618283af41866e8dee01b5a")
+    assert TrainingSpec.from_dict(stored).as_dict() == stored  # the worker's rebuild
