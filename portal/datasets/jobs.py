@@ -33,6 +33,7 @@ from portal.datasets.services import (
     mark_validating,
     pending_removals,
     snapshot_hints,
+    snapshot_warning,
     staging_path,
     temporary_dir,
 )
@@ -162,6 +163,8 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
         result = report.as_dict()
         result["warnings"] = mark_untouched(result["warnings"], untouched)
         if not report.ok:
+            if upload.mode == UploadMode.SNAPSHOT:
+                result["warnings"][:0] = snapshot_warning(parent, list_files(root))
             return None, {}, [], result
         confirmed_on = (upload.pending_removals or {}).get("parent")
         if not upload.allow_removals or (confirmed_on and parent is not None

@@ -613,6 +613,21 @@ def snapshot_hints(upload, parent, errors):
     return out
 
 
+def snapshot_warning(parent, paths):
+    """For a rejected snapshot: a warning (as a list of 0 or 1) saying what it would remove
+    once its problems are fixed, and that an addition removes nothing."""
+    people = {p.split("/", 1)[0][4:] for p in paths if p.startswith("sub-") and "/" in p}
+    removals = pending_removals(parent, paths, people)
+    if not removals:
+        return []
+    return [{
+        "path": "", "line": None, "field": "mode", "code": "upload.snapshot_removes",
+        "message": f"this upload was sent as the whole dataset: once the problems are fixed it "
+                   f"would remove {removal_words(removals)} (you would be asked to confirm). "
+                   "To add these files to the dataset instead, send them as an addition",
+    }]
+
+
 def restore_version(source, *, user, token=None, allow_removals=False):
     """Make a new version of ``source``'s (site, study) holding exactly ``source``'s files and
     recordings. Nothing is copied but rows: the files' blobs are shared. Removing anything the

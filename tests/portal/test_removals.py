@@ -126,7 +126,7 @@ def test_addition_never_waits_and_a_first_addition_is_the_first_version(lab,
     assert added.version.n_files == upload.version.n_files
 
 
-def test_partial_snapshot_errors_point_to_an_addition(lab, tmp_path):
+def test_partial_snapshot_errors_point_to_an_addition(client, lab, tmp_path):
     """Before: 'remove the row or add the participant's data', which led people to remove
     everyone else. Now the message names the version and says to send an addition."""
     first_version(lab)
@@ -137,6 +137,13 @@ def test_partial_snapshot_errors_point_to_an_addition(lab, tmp_path):
     for problem in about:
         assert "is in version 1" in problem["message"]
         assert "as an addition" in problem["message"]
+    first = rejected.warnings[0]
+    assert first["code"] == "upload.snapshot_removes"
+    assert "2 participants (sub-02, sub-03)" in first["message"]
+    assert "as an addition" in first["message"]
+    client.force_login(lab["user"])
+    html = client.get(reverse("datasets:upload", args=[rejected.pk])).content.decode()
+    assert "would remove" in html and "is in version 1" in html
 
 
 # --- the web pages ---------------------------------------------------------------------------
