@@ -80,3 +80,30 @@ def test_the_reproduce_job_runs_the_lineage_handler():
     from portal.jobs.kinds import KINDS
 
     assert KINDS["audit.reproduce"].handler == "portal.lineage.jobs:run_reproduce"
+
+
+@pytest.mark.django_db
+def test_the_reproduction_card_of_pages_below_lineage(rf):
+    """Plumbing, on invented rows: the tag the quality and feature-set pages load shows the
+    latest reproduction, its job, and the button only when the page says the reader may."""
+    from types import SimpleNamespace
+
+    from django.template import Context, RequestContext, Template
+
+    from portal.jobs.models import Job
+
+    subject = SimpleNamespace(pk=99)
+    Reproduction.objects.create(subject="qc:99", original_sha256="c" * 64,
+                                new_sha256="c" * 64, matches=True)
+    running = Reproduction.objects.create(subject="qc:99", original_sha256="c" * 64)
+    job = Job.objects.create(kind="audit.reproduce", target_type="lineage.reproduction",
+                             target_id=str(running.pk))
+    template = Template('{% load lineage %}{% reproduction_card "qc" subject may %}')
+    request = rf.get("/quality/somewhere/")
+    shown = template.render(RequestContext(request, {"subject": subject, "may": True}))
+    assert 'name="csrfmiddlewaretoken"' in shown  # the page's token reaches the form
+    assert "running" in shown and f'id="job-{job.pk}"' in shown
+    assert 'action="/audit/reproduce/qc/99/"' in shown
+    assert 'value="/quality/somewhere/"' in shown
+    hidden = template.render(Context({"subject": subject, "may": False, "request": request}))
+    assert "running" in hidden and "<form" not in hidden
