@@ -9,14 +9,23 @@ model's inputs, the trusted types and the model's sha256), ``model-card.md`` and
 sha256 is checked first.
 """
 
+from __future__ import annotations
+
 import hashlib
 import io
 import json
 import os
 import zipfile
+from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from cairn_science.bids.recording import read_recording
+
+if TYPE_CHECKING:
+    import numpy as np
+    import pandas as pd
+    from sklearn.base import BaseEstimator
 
 FORMAT = "cairn-release-1"
 #: What the science package needs to load a release and predict (pyproject.toml's
@@ -27,8 +36,10 @@ ARCHIVE_MEMBERS = ("features.json", "model-card.md", "model.skops", "requirement
 MAX_MEMBER_BYTES = 1 << 30
 
 
-def feature_specification(*, feature_set_params, columns, labels, label, normalisation,
-                          site_stats, model_sha256, trusted, caution):
+def feature_specification(*, feature_set_params: Mapping, columns: Sequence[str],
+                          labels: Sequence[str], label: Mapping, normalisation: Mapping,
+                          site_stats: Mapping | None, model_sha256: str, trusted: Sequence[str],
+                          caution: str) -> dict:
     """Everything needed to compute a release's inputs and read its outputs (JSON-ready)."""
     return {
         "format": FORMAT,
@@ -72,7 +83,7 @@ def _scores_text(scores):
             f"{_number(scores['chance']['balanced_accuracy'])}.")
 
 
-def permutation_text(test):
+def permutation_text(test: Mapping | None) -> str:
     """The permutation p-value in words, with the smallest p its count allows and, when the
     model was chosen among several, the p-value that ignores the choice."""
     if not test:
@@ -90,7 +101,7 @@ def permutation_text(test):
     return text
 
 
-def selection_text(selection):
+def selection_text(selection: Mapping | None) -> str:
     """How the model was chosen, in words."""
     if not selection:
         return ""
@@ -156,7 +167,9 @@ def _scheme_warning(scores):
     return ""
 
 
-def model_card(estimator, *, name, kind, training, scores, caution, trusted, site=None):
+def model_card(estimator: BaseEstimator, *, name: str, kind: str, training: Mapping,
+               scores: Mapping, caution: str, trusted: Sequence[str],
+               site: str | None = None) -> str:
     """The model card as Markdown (skops' card support)."""
     from skops import card
 
@@ -190,7 +203,7 @@ def model_card(estimator, *, name, kind, training, scores, caution, trusted, sit
     return c.render()
 
 
-def bundle(files, *, requirements):
+def bundle(files: Mapping[str, bytes], *, requirements: Sequence[str]) -> bytes:
     """One zip archive of a release's files (``{name: bytes}``) and its requirements list;
     byte-identical for identical inputs (sorted names, fixed timestamps)."""
     members = {**files, "requirements.txt": (
@@ -208,7 +221,7 @@ def bundle(files, *, requirements):
     return buffer.getvalue()
 
 
-def release_requirements(dependencies=SCIENCE_DEPENDENCIES):
+def release_requirements(dependencies: Sequence[str] = SCIENCE_DEPENDENCIES) -> list[str]:
     """``name==version`` for each dependency as installed here and everything it pulls in
     (markers evaluated for this interpreter, no extras), sorted: what a release was made
     with."""
@@ -269,7 +282,7 @@ def _release_files(path):
                      "release-N.zip as downloaded from the portal")
 
 
-def load(path):
+def load(path: str | os.PathLike) -> tuple[BaseEstimator, dict]:
     """(estimator, specification) of a release: the archive as downloaded (release-N.zip) or
     a folder of its files. Refuses a model whose sha256 differs from the specification's and
     any type the specification does not list as trusted."""
@@ -297,8 +310,10 @@ def load(path):
     return skops.io.loads(model, trusted=trusted), spec
 
 
-def features_for_recording(bids_file, spec, *, bad_channels=(), bad_segments=(),
-                           power_line_hz=None):
+def features_for_recording(bids_file: str | os.PathLike, spec: Mapping, *,
+                           bad_channels: Sequence[str] = (),
+                           bad_segments: Sequence[tuple[float, float]] = (),
+                           power_line_hz: float | None = None) -> pd.DataFrame:
     """The release's input columns for every window of one BIDS EEG recording
     (a pandas DataFrame with ``window_start_s`` and the columns in the model's order)."""
     import mne
@@ -348,7 +363,7 @@ _REFERENCE_NEEDED = {
 }
 
 
-def participant_normalise(values, reference):
+def participant_normalise(values: np.ndarray, reference: np.ndarray) -> np.ndarray:
     """``values`` (windows × columns) referenced to one participant's ``reference`` windows:
     minus their mean, divided by their SD (columns without spread are only centred), as the
     training data were."""
@@ -430,8 +445,10 @@ def _inputs(release, bids_file, *, baseline_file, baseline_windows, site, **kwar
     return estimator, frame[["window_start_s"]].reset_index(drop=True), values
 
 
-def predict(release, bids_file, *, baseline_file=None, baseline_windows=None, site=None,
-            **kwargs):
+def predict(release: str | os.PathLike, bids_file: str | os.PathLike, *,
+            baseline_file: str | os.PathLike | None = None,
+            baseline_windows: pd.DataFrame | np.ndarray | None = None, site: str | None = None,
+            **kwargs: object) -> pd.DataFrame:
     """Predicted class per window of a BIDS recording: a DataFrame (window_start_s,
     predicted). ``release`` is the archive as downloaded (or a folder of its files). A
     release that normalises by participant needs that participant's reference windows
@@ -443,8 +460,10 @@ def predict(release, bids_file, *, baseline_file=None, baseline_windows=None, si
     return frame.assign(predicted=estimator.predict(values))
 
 
-def predict_proba(release, bids_file, *, baseline_file=None, baseline_windows=None, site=None,
-                  **kwargs):
+def predict_proba(release: str | os.PathLike, bids_file: str | os.PathLike, *,
+                  baseline_file: str | os.PathLike | None = None,
+                  baseline_windows: pd.DataFrame | np.ndarray | None = None,
+                  site: str | None = None, **kwargs: object) -> pd.DataFrame:
     """Class probabilities per window of a BIDS recording: a DataFrame (window_start_s, one
     column per class). Arguments as :func:`predict`."""
     import pandas as pd

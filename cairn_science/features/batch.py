@@ -6,17 +6,25 @@ time-domain features on. The Welch spectrum of the broadband windows is computed
 shared by every spectral feature.
 """
 
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping, Sequence
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import signal
+
+if TYPE_CHECKING:
+    from .registry import Band
 
 DEFAULT_WELCH_SEGMENT_S = 2.0
 
 
 class WindowBatch:
-    def __init__(self, windows_uv, *, sfreq_hz, ch_names, bands, band_windows_uv=None,
-                 welch_segment_s=DEFAULT_WELCH_SEGMENT_S):
+    def __init__(self, windows_uv: np.ndarray, *, sfreq_hz: float, ch_names: Sequence[str],
+                 bands: Iterable[Band], band_windows_uv: Mapping[str, np.ndarray] | None = None,
+                 welch_segment_s: float = DEFAULT_WELCH_SEGMENT_S):
         windows_uv = np.asarray(windows_uv, dtype=float)
         if windows_uv.ndim != 3:
             raise ValueError("windows must have shape (n_windows, n_channels, n_samples)")
@@ -30,18 +38,18 @@ class WindowBatch:
         self.welch_segment_s = float(welch_segment_s)
 
     @property
-    def n_windows(self):
+    def n_windows(self) -> int:
         return self.broadband.shape[0]
 
     @property
-    def n_channels(self):
+    def n_channels(self) -> int:
         return self.broadband.shape[1]
 
     @property
-    def n_samples(self):
+    def n_samples(self) -> int:
         return self.broadband.shape[2]
 
-    def signal(self, band=None):
+    def signal(self, band: Band | None = None) -> np.ndarray:
         """Windows of the broadband signal (``band`` None) or of one band-filtered signal."""
         if band is None:
             return self.broadband
@@ -52,7 +60,7 @@ class WindowBatch:
                 from None
 
     @cached_property
-    def welch(self):
+    def welch(self) -> tuple[np.ndarray, np.ndarray]:
         """(freqs_hz, power) with power in µV²/Hz of shape (n_windows, n_channels, n_freqs):
         Hann segments of ``welch_segment_s`` (at most the window), half overlap, mean of the
         segments' periodograms, each segment's mean removed."""
@@ -62,7 +70,7 @@ class WindowBatch:
                                     scaling="density", axis=-1)
         return freqs, power
 
-    def band_power(self, l_freq_hz, h_freq_hz):
+    def band_power(self, l_freq_hz: float, h_freq_hz: float) -> np.ndarray:
         """Power (µV²) between the edges, lower included and upper excluded: the PSD summed
         over those bins times the bin width."""
         freqs, power = self.welch

@@ -8,9 +8,17 @@ constant to rounding, m2 ≤ (eps · mean)² with eps the float64 machine epsilo
 all-zero window included).
 """
 
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from .registry import Feature
+
+if TYPE_CHECKING:
+    from .batch import WindowBatch
+    from .registry import Band
 
 
 def _central_moments(x):
@@ -25,24 +33,24 @@ def _central_moments(x):
     return m2, m3, m4, constant
 
 
-def mean(batch, band=None):
+def mean(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Mean of the window's samples (µV)."""
     return batch.signal(None).mean(axis=-1)
 
 
-def standard_deviation(batch, band=None):
+def standard_deviation(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Population standard deviation (ddof=0) of the window's samples (µV)."""
     return batch.signal(None).std(axis=-1, ddof=0)
 
 
-def skewness(batch, band=None):
+def skewness(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Biased sample skewness m3 / m2^1.5 (scipy.stats.skew with bias=True)."""
     m2, m3, _, constant = _central_moments(batch.signal(None))
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(constant, np.nan, m3 / m2 ** 1.5)
 
 
-def kurtosis(batch, band=None):
+def kurtosis(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Biased excess kurtosis m4 / m2² - 3 (scipy.stats.kurtosis with fisher=True,
     bias=True)."""
     m2, _, m4, constant = _central_moments(batch.signal(None))

@@ -8,12 +8,15 @@ only on the request and the requested channels, so tables of different recording
 A requested channel that a recording had to drop gives empty (NaN) values in its columns.
 """
 
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .batch import DEFAULT_WELCH_SEGMENT_S, WindowBatch
-from .registry import Band, get_feature, registry
+from .registry import Band, Feature, get_feature, registry
 
 MICROVOLTS_PER_VOLT = 1e6
 
@@ -31,7 +34,7 @@ class FeatureRequest:
     welch_segment_s: float = DEFAULT_WELCH_SEGMENT_S
 
     @classmethod
-    def from_dict(cls, data):
+    def from_dict(cls, data: Mapping | None) -> FeatureRequest:
         data = dict(data)
         known = {"bands", "features", "params", "band_signals", "welch_segment_s"}
         unknown = sorted(set(data) - known)
@@ -64,7 +67,7 @@ class FeatureRequest:
         return cls(bands=bands, features=names, params=params, band_signals=band_signals,
                    welch_segment_s=segment)
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {
             "bands": [{"name": b.name, "l_freq_hz": b.l_freq_hz, "h_freq_hz": b.h_freq_hz}
                       for b in self.bands],
@@ -74,13 +77,13 @@ class FeatureRequest:
             "welch_segment_s": self.welch_segment_s,
         }
 
-    def selected(self):
+    def selected(self) -> list[Feature]:
         table = registry()
         names = self.features if self.features is not None else tuple(table)
         return [table[name] for name in names]
 
 
-def scopes(feature, request):
+def scopes(feature: Feature, request: FeatureRequest) -> list[Band | None]:
     """The bands a feature runs for: each band (per-band features), the broadband signal
     (None) plus the asked band-filtered signals (signal features), or the broadband only."""
     if feature.per_band:
@@ -90,7 +93,7 @@ def scopes(feature, request):
     return [None]
 
 
-def describe_columns(request, ch_names):
+def describe_columns(request: FeatureRequest, ch_names: Sequence[str]) -> list[dict]:
     """One dict per feature column, in table order: name, feature, family, band, channel,
     unit, parameters and description. Used for the table and for its JSON sidecar."""
     columns = []
@@ -114,7 +117,7 @@ def describe_columns(request, ch_names):
     return columns
 
 
-def band_filtered(data_v, *, sfreq_hz, band):
+def band_filtered(data_v: np.ndarray, *, sfreq_hz: float, band: Band) -> np.ndarray:
     """Zero-phase FIR band-pass of the continuous signal (MNE's default design)."""
     import mne
 
@@ -123,8 +126,9 @@ def band_filtered(data_v, *, sfreq_hz, band):
                                   verbose=False)
 
 
-def compute_features(data_v, *, sfreq_hz, ch_names, starts, window_samples, request,
-                     all_channels=None):
+def compute_features(data_v: np.ndarray, *, sfreq_hz: float, ch_names: Sequence[str],
+                     starts: np.ndarray, window_samples: int, request: FeatureRequest,
+                     all_channels: Sequence[str] | None = None) -> tuple[list[dict], np.ndarray]:
     """Feature values for windows of one prepared recording.
 
     ``data_v`` (n_channels, n_times) in volts; ``starts`` the first sample of each window;
@@ -167,6 +171,6 @@ def compute_features(data_v, *, sfreq_hz, ch_names, starts, window_samples, requ
     return columns, values
 
 
-def columns_key(column):
+def columns_key(column: Mapping) -> tuple[str, str, str]:
     band = column["band"]["name"] if column["band"] else None
     return (band, column["feature"], column["channel"])

@@ -14,11 +14,19 @@ insensitive), a prefix followed by "z" or a number and nothing else:
 neither group.
 """
 
+from __future__ import annotations
+
 import re
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .registry import Feature
+
+if TYPE_CHECKING:
+    from .batch import WindowBatch
+    from .registry import Band
 
 FRONTAL_PATTERN = re.compile(r"^(fp|af|f)(z|\d+)$", re.IGNORECASE)
 PARIETAL_PATTERN = re.compile(r"^p(z|\d+)$", re.IGNORECASE)
@@ -38,17 +46,17 @@ def _power(batch, name):
     return batch.band_power(band.l_freq_hz, band.h_freq_hz)
 
 
-def frontal_channels(ch_names):
+def frontal_channels(ch_names: Sequence[str]) -> list[int]:
     """Indices of the frontal channels in ``ch_names`` (see the module's docstring)."""
     return [i for i, name in enumerate(ch_names) if FRONTAL_PATTERN.match(name)]
 
 
-def parietal_channels(ch_names):
+def parietal_channels(ch_names: Sequence[str]) -> list[int]:
     """Indices of the parietal channels in ``ch_names`` (see the module's docstring)."""
     return [i for i, name in enumerate(ch_names) if PARIETAL_PATTERN.match(name)]
 
 
-def engagement_index(batch, band=None):
+def engagement_index(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """beta / (alpha + theta) per channel, from each channel's absolute band powers (Pope,
     Bogart & Bartolome 1995, who summed the powers over Cz, Pz, P3 and P4 first; from
     memory). NaN where alpha + theta is zero."""
@@ -57,7 +65,7 @@ def engagement_index(batch, band=None):
         return beta / (alpha + theta)
 
 
-def frontal_theta_parietal_alpha(batch, band=None):
+def frontal_theta_parietal_alpha(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Mean theta power over the frontal channels divided by mean alpha power over the
     parietal channels, one value per window (the arithmetic means of absolute powers, µV²,
     so the ratio is unit-free). NaN when the batch has no frontal or no parietal channel,

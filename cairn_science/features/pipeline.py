@@ -4,14 +4,24 @@ Pure: arrays and plain dicts in, a :class:`Part` (or a pandas table) out. The po
 parts as Parquet blobs and joins them with the recordings' index and label columns.
 """
 
+from __future__ import annotations
+
 import io
+import os
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, BinaryIO
 
 import numpy as np
 
 from cairn_science.signal import ChannelError, PrepSettings, TooShortError, plan_windows, prepare
 
 from .extract import FeatureRequest, compute_features
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from cairn_science.signal.prepare import Prepared
 
 #: The joined table's leading columns; every other column is a feature.
 INDEX_COLUMNS = ("site", "participant", "session", "task", "run", "window_start_s")
@@ -20,7 +30,7 @@ ORIGIN_COLUMNS = ("recording", "acquisition", "block_onset_s", "qc_verdict")
 NON_FEATURE_COLUMNS = INDEX_COLUMNS + LABEL_COLUMNS + ORIGIN_COLUMNS
 
 
-def feature_columns(columns):
+def feature_columns(columns: Iterable[str]) -> list[str]:
     """The feature columns of a joined table, in table order."""
     return [c for c in columns if c not in NON_FEATURE_COLUMNS]
 
@@ -46,7 +56,7 @@ def _settings(params, channel_names):
         list(channels) if channels is not None else list(channel_names))
 
 
-def filter_edges(prepared):
+def filter_edges(prepared: Prepared) -> list[tuple[float, float]]:
     """The start and end of the recording where the band-pass has not settled, as
     (onset_s, duration_s) segments to leave out (half the filter length at each end)."""
     edge_s = max((float(step.get("edge_transient_s") or 0.0) for step in prepared.steps
@@ -57,7 +67,8 @@ def filter_edges(prepared):
     return [(0.0, edge_s), (max(0.0, duration_s - edge_s), edge_s)]
 
 
-def recording_part(data_v, *, sfreq_hz, ch_names, inputs, params):
+def recording_part(data_v: np.ndarray, *, sfreq_hz: float, ch_names: Sequence[str],
+                   inputs: Mapping, params: Mapping) -> Part:
     """Prepare one recording (``data_v`` in volts, channels × samples) and compute its
     features. ``inputs`` holds bad_channels, bad_segments, blocks and power_line_hz;
     ``params`` is a resolved feature-set parameter dict."""
@@ -87,7 +98,7 @@ def recording_part(data_v, *, sfreq_hz, ch_names, inputs, params):
                 steps=list(prepared.steps), excluded_reason=reason)
 
 
-def part_to_parquet(part):
+def part_to_parquet(part: Part) -> bytes:
     """Parquet bytes of a part: window_start_s, block, then one float column per feature."""
     import pandas as pd
 
@@ -97,7 +108,7 @@ def part_to_parquet(part):
     return frame_to_parquet(frame)
 
 
-def frame_to_parquet(frame):
+def frame_to_parquet(frame: pd.DataFrame) -> bytes:
     """Deterministic Parquet bytes (same frame, same library versions, same bytes)."""
     import pyarrow as pa
     import pyarrow.parquet as pq
@@ -108,7 +119,7 @@ def frame_to_parquet(frame):
     return buffer.getvalue()
 
 
-def read_parquet(source):
+def read_parquet(source: str | os.PathLike | BinaryIO) -> pd.DataFrame:
     import pandas as pd
 
     return pd.read_parquet(source)

@@ -7,7 +7,9 @@ shape (n_windows, n_channels), or (n_windows,) for an index that combines channe
 Parameters are keyword arguments with the defaults given in the entry.
 """
 
-from collections.abc import Callable
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 FAMILIES = ("spectral", "time", "distribution", "complexity", "index")
@@ -22,7 +24,7 @@ class Band:
     h_freq_hz: float
 
     @classmethod
-    def from_dict(cls, item):
+    def from_dict(cls, item: Mapping) -> Band:
         return cls(str(item["name"]), float(item["l_freq_hz"]), float(item["h_freq_hz"]))
 
 
@@ -53,7 +55,7 @@ class Feature:
         if not self.name.replace("_", "").isalnum():
             raise ValueError(f"feature {self.name!r}: use letters, digits and '_' only")
 
-    def params(self, overrides=None):
+    def params(self, overrides: Mapping | None = None) -> dict:
         """The entry's defaults updated with ``overrides``; unknown names are an error."""
         overrides = dict(overrides or {})
         unknown = sorted(set(overrides) - set(self.defaults))
@@ -79,7 +81,7 @@ def _collect():
 _TABLE = None
 
 
-def registry():
+def registry() -> dict[str, Feature]:
     """{name: Feature} for every known feature, in family order."""
     global _TABLE
     if _TABLE is None:
@@ -87,7 +89,7 @@ def registry():
     return _TABLE
 
 
-def get_feature(name):
+def get_feature(name: str) -> Feature:
     table = registry()
     try:
         return table[name]

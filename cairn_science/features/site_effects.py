@@ -6,6 +6,10 @@ participant-grouped cross-validation, against chance), and which features differ
 sites (the share of variance between sites, eta squared, of the per-participant means).
 """
 
+from __future__ import annotations
+
+from collections.abc import Sequence
+
 import numpy as np
 
 #: Balanced accuracy above chance by this much is reported as a strong site effect.
@@ -35,7 +39,8 @@ def _eta_squared(means, sites):
     return out
 
 
-def site_effects(values, *, sites, participants, columns, n_splits=5, random_state=0):
+def site_effects(values: np.ndarray, *, sites: Sequence[str], participants: Sequence[str],
+                 columns: Sequence[str], n_splits: int = 5, random_state: int = 0) -> dict:
     """Report of site effects for a table.
 
     ``values`` (n_rows, n_columns) with NaN for missing; ``sites`` and ``participants`` per

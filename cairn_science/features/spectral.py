@@ -7,9 +7,17 @@ upper edge (excluded), times the bin width (:meth:`WindowBatch.band_power`). Wit
 2 s segments the bins are 0.5 Hz apart, so a band 8–13 Hz takes the bins 8.0, 8.5, …, 12.5.
 """
 
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from .registry import Feature
+
+if TYPE_CHECKING:
+    from .batch import WindowBatch
+    from .registry import Band
 
 PAF_DEFAULT_RANGE_HZ = (7.0, 14.0)
 
@@ -28,14 +36,14 @@ def _union_mask(freqs, bands):
     return mask
 
 
-def absolute_power(batch, band=None):
+def absolute_power(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Power in ``band`` (µV²): the Welch PSD summed over [l_freq_hz, h_freq_hz) times the
     bin width."""
     band = _require_band("absolute_power", band)
     return batch.band_power(band.l_freq_hz, band.h_freq_hz)
 
 
-def relative_power(batch, band=None):
+def relative_power(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Power in ``band`` divided by the power over the union of the study's bands
     (``batch.bands``), not over the whole spectrum: a bin inside two overlapping bands
     counts once in the denominator, and bins outside every band (below the lowest band's
@@ -51,8 +59,10 @@ def relative_power(batch, band=None):
         return batch.band_power(band.l_freq_hz, band.h_freq_hz) / total
 
 
-def peak_alpha_frequency(batch, band=None, *, l_freq_hz=PAF_DEFAULT_RANGE_HZ[0],
-                         h_freq_hz=PAF_DEFAULT_RANGE_HZ[1], interpolate=True):
+def peak_alpha_frequency(batch: WindowBatch, band: Band | None = None, *,
+                         l_freq_hz: float = PAF_DEFAULT_RANGE_HZ[0],
+                         h_freq_hz: float = PAF_DEFAULT_RANGE_HZ[1],
+                         interpolate: bool = True) -> np.ndarray:
     """Frequency (Hz) of the Welch PSD's largest bin in [l_freq_hz, h_freq_hz), by default
     7–14 Hz: the canonical alpha band 8–13 Hz widened by 1 Hz each side, a usual search
     range for the individual alpha peak (Klimesch 1999; Corcoran et al. 2018 search 7–13 Hz;
@@ -85,7 +95,7 @@ def peak_alpha_frequency(batch, band=None, *, l_freq_hz=PAF_DEFAULT_RANGE_HZ[0],
     return peak_hz + offset * df
 
 
-def spectral_entropy(batch, band=None):
+def spectral_entropy(batch: WindowBatch, band: Band | None = None) -> np.ndarray:
     """Normalised Shannon entropy of the Welch PSD (unit "1", 0 for all power in one bin, 1
     for a flat spectrum): with p_i the PSD of bin i divided by the sum over all bins from 0
     Hz (DC included) to Nyquist, ``-Σ p_i log2 p_i / log2(n_bins)``; bins with p_i = 0 add

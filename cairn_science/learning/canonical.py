@@ -24,12 +24,18 @@ dumped. ``skops_bytes`` / ``load_release`` / ``trusted_types`` wrap ``skops.io``
 explicit trusted list: loading never trusts a type the caller did not name.
 """
 
+from __future__ import annotations
+
 import hashlib
 import importlib
 import sys
 import types
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from sklearn.base import BaseEstimator
 
 _FUNCTION_TYPES = (types.FunctionType, types.BuiltinFunctionType, types.MethodType,
                    types.BuiltinMethodType, type)
@@ -185,18 +191,18 @@ def _neighbors_tree_state(tree):
     return tuple(state)
 
 
-def digest_of(obj):
+def digest_of(obj: object) -> str:
     walker = _Walker()
     walker.walk(obj)
     return walker.hash.hexdigest()
 
 
-def model_digest(estimator) -> str:
+def model_digest(estimator: BaseEstimator) -> str:
     """SHA-256 (hex) of the canonical content of a (fitted) model; see the module docstring."""
     return digest_of(estimator)
 
 
-def skops_bytes(estimator) -> bytes:
+def skops_bytes(estimator: BaseEstimator) -> bytes:
     """The release file of a fitted model (``skops.io.dumps``)."""
     import skops.io
 
@@ -236,7 +242,7 @@ def alias_former_names(trusted: list[str]) -> None:
                 break
 
 
-def load_release(data: bytes, trusted: list[str]):
+def load_release(data: bytes, trusted: list[str]) -> BaseEstimator:
     """Load a release file, trusting exactly the types named in ``trusted`` (besides skops'
     defaults). Raises ValueError naming every type the file needs that is not in the list."""
     import skops.io

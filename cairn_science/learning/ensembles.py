@@ -16,9 +16,13 @@ These classes must stay importable as ``cairn_science.learning.ensembles.<name>`
 names them by that path, and loading one means trusting those names.
 """
 
+from __future__ import annotations
+
 import numbers
+from typing import Self
 
 import numpy as np
+from numpy.typing import ArrayLike
 from sklearn.base import BaseEstimator, ClassifierMixin, clone
 from sklearn.utils import check_random_state, get_tags
 from sklearn.utils.multiclass import check_classification_targets
@@ -68,7 +72,7 @@ def _finite(estimators):
     return "allow-nan" if all(get_tags(e).input_tags.allow_nan for e in estimators) else True
 
 
-def seed_random_states(estimator, seed):
+def seed_random_states(estimator: BaseEstimator, seed: int) -> BaseEstimator:
     """Set every ``random_state`` parameter of ``estimator`` (nested ones too) from ``seed``.
 
     The parameters are visited in sorted order of their ``get_params(deep=True)`` names and
@@ -119,8 +123,9 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
     (the row indices each member was fitted on, in draw order), ``seeds_``.
     """
 
-    def __init__(self, estimator=None, n_estimators=10, sample_by="participant", voting="soft",
-                 random_state=None):
+    def __init__(self, estimator: BaseEstimator | None = None, n_estimators: int = 10,
+                 sample_by: str = "participant", voting: str = "soft",
+                 random_state: int | np.random.RandomState | None = None):
         self.estimator = estimator
         self.n_estimators = n_estimators
         self.sample_by = sample_by
@@ -139,7 +144,7 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
             return DecisionTreeClassifier()
         return self.estimator
 
-    def fit(self, X, y, groups=None):
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> Self:
         n_estimators = _check_int(self.n_estimators, "n_estimators", 1)
         _check_choice(self.sample_by, "sample_by", SAMPLE_BY)
         _check_choice(self.voting, "voting", VOTING)
@@ -197,11 +202,11 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
                 scores[np.arange(X.shape[0]), member.predict(X).astype(int)] += 1.0
         return scores / len(self.members_)
 
-    def predict_proba(self, X):
+    def predict_proba(self, X: ArrayLike) -> np.ndarray:
         """Soft voting: mean member probability; hard voting: share of member votes."""
         return self._scores(X)
 
-    def predict(self, X):
+    def predict(self, X: ArrayLike) -> np.ndarray:
         """The class with the highest mean probability (or most votes); ties go to the class
         first in ``classes_``."""
         scores = self._scores(X)
@@ -237,8 +242,10 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
     (train, test) row indices), ``inner_cv_`` (name of the splitter used), ``stack_method_``.
     """
 
-    def __init__(self, estimators, final_estimator=None, n_inner_splits=5,
-                 stack_method="predict_proba", passthrough=False, random_state=None):
+    def __init__(self, estimators: list[tuple[str, BaseEstimator]],
+                 final_estimator: BaseEstimator | None = None, n_inner_splits: int = 5,
+                 stack_method: str = "predict_proba", passthrough: bool = False,
+                 random_state: int | np.random.RandomState | None = None):
         self.estimators = estimators
         self.final_estimator = final_estimator
         self.n_inner_splits = n_inner_splits
@@ -248,7 +255,7 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
 
     # get_params / set_params reach members by name ("lda-0__shrinkage"), as in scikit-learn's
     # composite estimators.
-    def get_params(self, deep=True):
+    def get_params(self, deep: bool = True) -> dict:
         out = super().get_params(deep=deep)
         if deep and isinstance(self.estimators, list | tuple):
             for item in self.estimators:
@@ -262,7 +269,7 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
                         out[f"{name}__{key}"] = value
         return out
 
-    def set_params(self, **params):
+    def set_params(self, **params: object) -> Self:
         if "estimators" in params:
             self.estimators = params.pop("estimators")
         members = self.estimators if isinstance(self.estimators, list | tuple) else []
@@ -349,7 +356,7 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
             columns.append(X)
         return np.hstack(columns)
 
-    def fit(self, X, y, groups=None):
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> Self:
         from sklearn.linear_model import LogisticRegression
         from sklearn.model_selection import cross_val_predict
 
@@ -379,7 +386,7 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
                                   in zip(members, self.estimators_, strict=True)}
         return self
 
-    def meta_features(self, X):
+    def meta_features(self, X: ArrayLike) -> np.ndarray:
         """The final estimator's input: the refitted members' outputs (and X if passthrough)."""
         check_is_fitted(self, "final_estimator_")
         X = validate_data(self, X, dtype=None, ensure_all_finite=_finite(self.estimators_),
@@ -389,11 +396,11 @@ class GroupStackingClassifier(ClassifierMixin, BaseEstimator):
                                                 strict=True)]
         return self._meta_features(X, outputs)
 
-    def predict_proba(self, X):
+    def predict_proba(self, X: ArrayLike) -> np.ndarray:
         check_is_fitted(self, "final_estimator_")
         return self.final_estimator_.predict_proba(self.meta_features(X))
 
-    def predict(self, X):
+    def predict(self, X: ArrayLike) -> np.ndarray:
         check_is_fitted(self, "final_estimator_")
         codes = np.asarray(self.final_estimator_.predict(self.meta_features(X))).astype(int)
         return self.classes_.take(codes)
@@ -424,12 +431,13 @@ class GroupCalibratedClassifier(ClassifierMixin, BaseEstimator):
     ``calibrated_`` (the fitted ``CalibratedClassifierCV``), ``inner_splits_``.
     """
 
-    def __init__(self, estimator, n_inner_splits=5, random_state=None):
+    def __init__(self, estimator: BaseEstimator, n_inner_splits: int = 5,
+                 random_state: int | np.random.RandomState | None = None):
         self.estimator = estimator
         self.n_inner_splits = n_inner_splits
         self.random_state = random_state
 
-    def fit(self, X, y, groups=None):
+    def fit(self, X: ArrayLike, y: ArrayLike, groups: ArrayLike | None = None) -> Self:
         from sklearn.calibration import CalibratedClassifierCV
 
         name = type(self.estimator).__name__
@@ -454,18 +462,18 @@ class GroupCalibratedClassifier(ClassifierMixin, BaseEstimator):
         self.estimator_ = clone(self.estimator).fit(X, y)
         return self
 
-    def decision_function(self, X):
+    def decision_function(self, X: ArrayLike) -> np.ndarray:
         check_is_fitted(self, "estimator_")
         X = validate_data(self, X, dtype=None, reset=False)
         return self.estimator_.decision_function(X)
 
-    def predict(self, X):
+    def predict(self, X: ArrayLike) -> np.ndarray:
         """The estimator's own prediction (from its decision function)."""
         check_is_fitted(self, "estimator_")
         X = validate_data(self, X, dtype=None, reset=False)
         return self.estimator_.predict(X)
 
-    def predict_proba(self, X):
+    def predict_proba(self, X: ArrayLike) -> np.ndarray:
         """Platt-scaled probabilities, averaged over the grouped inner folds."""
         check_is_fitted(self, "calibrated_")
         X = validate_data(self, X, dtype=None, reset=False)

@@ -8,8 +8,12 @@ person's statistics come from their own windows that the fold may use, never fro
 and under the time-ordered scheme never from their later (test) part.
 """
 
+from __future__ import annotations
+
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -18,6 +22,13 @@ from cairn_science.features.pipeline import feature_columns
 from . import metrics, validation
 from .learners import LEARNERS, make_learner
 from .spec import select_columns
+
+if TYPE_CHECKING:
+    import pandas as pd
+    from sklearn.pipeline import Pipeline
+
+    from .spec import ModelSpec, TrainingSpec
+    from .validation import Fold, Scheme
 
 LEVEL_ORDER = ("low", "moderate", "high")
 
@@ -89,7 +100,8 @@ def _ranks(frame, columns):
     return np.array([rank[key] for key in keys], dtype=np.intp)
 
 
-def prepare_data(table, spec, *, window_s=None):
+def prepare_data(table: pd.DataFrame, spec: TrainingSpec, *,
+                 window_s: float | None = None) -> Data:
     """Rows, label and features chosen by the spec. ``X`` is normalised by participant as a
     release fitted on every row is; evaluation normalises inside each fold
     (:func:`fold_matrix`). ``window_s`` is the feature set's window length (s)."""
@@ -145,7 +157,7 @@ def prepare_data(table, spec, *, window_s=None):
     return data
 
 
-def normalisation_rule(mode, scheme_name):
+def normalisation_rule(mode: str, scheme_name: str) -> str:
     """What participant normalisation does in each fold, in words for the run page ("" for
     none)."""
     if mode == "none":
@@ -165,7 +177,7 @@ def normalisation_rule(mode, scheme_name):
             f"person {held_out}.")
 
 
-def reference_windows(data, person, fold=None):
+def reference_windows(data: Data, person: str, fold: Fold | None = None) -> np.ndarray:
     """Indices (into ``data.reference``) of the windows whose statistics normalise
     ``person``'s rows in ``fold`` (``None``: a release fitted on every row).
 
@@ -186,7 +198,7 @@ def reference_windows(data, person, fold=None):
     return np.flatnonzero(mine)
 
 
-def participant_normalise(data, fold=None):
+def participant_normalise(data: Data, fold: Fold | None = None) -> np.ndarray:
     """``data.X_raw`` with each participant's rows centred and scaled by the statistics of
     their :func:`reference_windows` in ``fold``; raises DataError naming a participant who
     has none."""
@@ -208,14 +220,14 @@ def participant_normalise(data, fold=None):
     return out
 
 
-def fold_matrix(data, fold, *, site_standardise_on=False):
+def fold_matrix(data: Data, fold: Fold, *, site_standardise_on: bool = False) -> np.ndarray:
     """The features a fold fits and predicts on: participant normalisation and per-site
     standardisation with the statistics this fold may use."""
     X = participant_normalise(data, fold) if data.normalisation != "none" else data.X
     return site_standardise(X, data.sites, fold.train) if site_standardise_on else X
 
 
-def check_classes(data, scheme):
+def check_classes(data: Data, scheme: Scheme) -> None:
     """Each class needs enough participants for the scheme; raise DataError naming it."""
     needed = {"grouped_kfold": 2, "leave_one_participant_out": 2, "leave_one_site_out": 1,
               "within_participant_time": 1}[scheme.name]
@@ -226,14 +238,15 @@ def check_classes(data, scheme):
                             f"needs at least {needed} per class")
 
 
-def scheme_of(spec):
+def scheme_of(spec: TrainingSpec) -> Scheme:
     v = spec.validation
     return validation.Scheme(name=v["scheme"], n_splits=int(v.get("n_splits", 5)),
                              n_repeats=int(v.get("n_repeats", 1)),
                              test_share=float(v.get("test_share", 0.25)))
 
 
-def folds_for(spec, data, scheme=None, seed=None):
+def folds_for(spec: TrainingSpec, data: Data, scheme: Scheme | None = None,
+              seed: int | None = None) -> list[Fold]:
     scheme = scheme or scheme_of(spec)
     check_classes(data, scheme)
     folds = validation.outer_folds(scheme, y=data.y, participants=data.participants,
@@ -247,7 +260,7 @@ def folds_for(spec, data, scheme=None, seed=None):
     return folds
 
 
-def build_estimator(model, *, seed):
+def build_estimator(model: ModelSpec, *, seed: int) -> Pipeline:
     """The unfitted estimator for a ModelSpec: imputation and scaling, then the model."""
     from sklearn.impute import SimpleImputer
     from sklearn.pipeline import Pipeline
@@ -273,13 +286,13 @@ def build_estimator(model, *, seed):
                      ("scale", StandardScaler()), ("model", core)])
 
 
-def needs_groups(model):
+def needs_groups(model: ModelSpec) -> bool:
     """True when the model's fit takes the participant of each row: ensembles, and learners
     whose internal split (probability calibration) is grouped by participant."""
     return model.ensemble is not None or LEARNERS[model.learner].grouped
 
 
-def site_standardise(X, sites, train):
+def site_standardise(X: np.ndarray, sites: np.ndarray, train: np.ndarray) -> np.ndarray:
     """Standardise each site's rows by that site's training rows (a site without training
     rows, e.g. in leave-one-site-out, by all training rows)."""
     out = np.array(X, dtype=float, copy=True)
@@ -297,7 +310,7 @@ def site_standardise(X, sites, train):
     return out
 
 
-def model_inputs(model, data, X):
+def model_inputs(model: ModelSpec, data: Data, X: np.ndarray) -> np.ndarray:
     """``X`` as the model reads it: a model with a recurrent learner also reads each row's
     recording and window start (sequence keys; the learner builds each row's sequence only
     from the rows it is given, so never across the fold's parts)."""
@@ -306,7 +319,8 @@ def model_inputs(model, data, X):
     return with_sequence_keys(X, data.recordings, data.order) if uses_sequences(model) else X
 
 
-def fit_fold(model, data, fold, *, seed, site_standardise_on=False):
+def fit_fold(model: ModelSpec, data: Data, fold: Fold, *, seed: int,
+             site_standardise_on: bool = False) -> tuple[Pipeline, np.ndarray]:
     """Fit on the fold's training rows, predict its test rows. Returns (estimator, y_pred)."""
     X = model_inputs(model, data, fold_matrix(data, fold,
                                               site_standardise_on=site_standardise_on))
@@ -316,7 +330,8 @@ def fit_fold(model, data, fold, *, seed, site_standardise_on=False):
     return estimator, estimator.predict(X[fold.test])
 
 
-def fold_result(model, data, fold, *, seed, site_standardise_on=False):
+def fold_result(model: ModelSpec, data: Data, fold: Fold, *, seed: int,
+                site_standardise_on: bool = False) -> dict:
     """Scores of one fold, JSON-ready, with the test rows' predictions."""
     _, predicted = fit_fold(model, data, fold, seed=seed, site_standardise_on=site_standardise_on)
     truth = data.y[fold.test]
@@ -329,7 +344,7 @@ def fold_result(model, data, fold, *, seed, site_standardise_on=False):
             "test_rows": data.rows[fold.test].tolist(), "predicted": predicted.tolist()}
 
 
-def pooled(results, data):
+def pooled(results: Sequence[dict], data: Data) -> dict:
     """Scores of all folds' predictions together, per-fold summaries, per site."""
     position = {row: i for i, row in enumerate(data.rows.tolist())}
     first_repeat = [r for r in results if r["repeat"] == 0]
@@ -351,7 +366,8 @@ def pooled(results, data):
     }
 
 
-def evaluate(spec, data, *, models=None, folds=None):
+def evaluate(spec: TrainingSpec, data: Data, *, models: Sequence[ModelSpec] | None = None,
+             folds: Sequence[Fold] | None = None) -> dict[str, dict]:
     """Every model on the same outer folds, in this process (what the jobs do in parallel)."""
     models = models or spec.models
     folds = folds if folds is not None else folds_for(spec, data)

@@ -1,6 +1,9 @@
 """Electrode positions: the template fallback, neighbours and spherical-spline interpolation."""
 
+from __future__ import annotations
+
 import functools
+from collections.abc import Mapping, Sequence
 
 import mne
 import numpy as np
@@ -28,12 +31,12 @@ def _template():
     return {key.lower(): np.asarray(value, dtype=float) for key, value in positions.items()}
 
 
-def template_positions():
+def template_positions() -> dict[str, np.ndarray]:
     """{lower-case name: template position (m)} of every electrode of the 10-20 template."""
     return dict(_template())
 
 
-def template_position(ch_name):
+def template_position(ch_name: str) -> np.ndarray | None:
     """Template 10-20 position (head frame, m) of an electrode name, or None.
 
     Matching ignores case; a classic name missing from the template (T3, T4, T5, T6) is
@@ -46,7 +49,8 @@ def template_position(ch_name):
     return None
 
 
-def resolve_positions(ch_names, positions=None):
+def resolve_positions(ch_names: Sequence[str],
+                      positions: Mapping[str, Sequence[float]] | None = None) -> np.ndarray:
     """Positions (n_channels, 3) in m for ``ch_names``; NaN rows where none is known.
 
     ``positions`` maps names to (x, y, z) in m (e.g. from electrodes.tsv); without it the
@@ -65,7 +69,7 @@ def resolve_positions(ch_names, positions=None):
     return out
 
 
-def fit_sphere(points_m):
+def fit_sphere(points_m: np.ndarray) -> tuple[np.ndarray, float]:
     """Centre and radius (m) of the least-squares sphere through the points."""
     design = np.column_stack([2 * points_m, np.ones(len(points_m))])
     target = np.sum(points_m**2, axis=1)
@@ -75,7 +79,7 @@ def fit_sphere(points_m):
     return centre, radius
 
 
-def on_unit_sphere(points_m):
+def on_unit_sphere(points_m: np.ndarray) -> np.ndarray:
     """Directions of the electrodes from the centre of their best-fitting sphere.
 
     Falls back to the origin of the coordinate frame when fewer than four electrodes or a
@@ -91,7 +95,7 @@ def on_unit_sphere(points_m):
     return directions / np.linalg.norm(directions, axis=1, keepdims=True)
 
 
-def nearest_neighbours(points_m, *, n_neighbours):
+def nearest_neighbours(points_m: np.ndarray, *, n_neighbours: int) -> np.ndarray:
     """Index pairs (i, j), i < j, where j is among the ``n_neighbours`` nearest of i or i of j.
 
     Rows with NaN positions have no neighbours.
@@ -118,7 +122,8 @@ def _spline_kernel(cosine):
     return legendre.legval(np.clip(cosine, -1.0, 1.0), np.concatenate([[0.0], coefficients]))
 
 
-def spline_interpolation_matrix(from_unit, to_unit, *, regularisation=SPLINE_REGULARISATION):
+def spline_interpolation_matrix(from_unit: np.ndarray, to_unit: np.ndarray, *,
+                                regularisation: float = SPLINE_REGULARISATION) -> np.ndarray:
     """Matrix (n_to, n_from) that maps signals at ``from_unit`` to ``to_unit`` by spherical
     splines; both are unit vectors.
 

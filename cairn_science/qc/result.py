@@ -1,5 +1,7 @@
 """What a QC run returns: per-channel status and reasons, segments, blinks, verdict, spectrum."""
 
+from __future__ import annotations
+
 import math
 from dataclasses import dataclass, field
 
@@ -36,7 +38,7 @@ class Reason:
     value: float | None = None
     threshold: float | None = None
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {
             "check": self.check,
             "words": self.words,
@@ -55,7 +57,7 @@ class ChannelResult:
     marked_by_site: bool = False
     site_description: str | None = None
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {
             "status": self.status,
             "reasons": [reason.as_dict() for reason in self.reasons],
@@ -73,7 +75,7 @@ class PowerSpectrum:
     ch_names: list
     power_db: np.ndarray
 
-    def as_dict(self):
+    def as_dict(self) -> dict:
         return {
             "freqs_hz": [_fixed(f, 3) for f in self.freqs_hz],
             "unit": "dB re 1 µV²/Hz",
@@ -104,16 +106,16 @@ class QCResult:
     verdict_inputs: dict = field(default_factory=dict)
 
     @property
-    def bad_channels(self):
+    def bad_channels(self) -> list[str]:
         """Names of the channels with status "bad", in recording order."""
         return [name for name, channel in self.channels.items() if channel.status == "bad"]
 
-    def flagged_by(self, check):
+    def flagged_by(self, check: str) -> list[str]:
         """Names of the channels that ``check`` flagged (whatever else flagged them)."""
         return [name for name, channel in self.channels.items()
                 if any(reason.check == check for reason in channel.reasons)]
 
-    def as_dict(self, *, include_psd=True):
+    def as_dict(self, *, include_psd: bool = True) -> dict:
         """JSON-ready dict: floats rounded (values to 4 significant digits, times to 1 ms,
         shares to 0.01 %, spectra to 0.1 dB), NaN as null; the verdict's inputs are kept
         whole, so that the verdict can be decided again after people's channel decisions

@@ -1,6 +1,9 @@
 """Bad segments (windows rejected across channels) and blink counting."""
 
+from __future__ import annotations
+
 import re
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -47,9 +50,11 @@ class Segment:
     reasons: list
 
 
-def window_flags(data, *, sfreq_hz, no_signal, window_s=1.0, peak_to_peak_v=250e-6,
-                 muscle_l_freq_hz=30.0, muscle_h_freq_hz=100.0, muscle_z_max=5.0,
-                 power_line_hz=None, mains_band_hz=1.0):
+def window_flags(data: np.ndarray, *, sfreq_hz: float, no_signal: np.ndarray, window_s: float = 1.0,
+                 peak_to_peak_v: float = 250e-6, muscle_l_freq_hz: float = 30.0,
+                 muscle_h_freq_hz: float = 100.0, muscle_z_max: float = 5.0,
+                 power_line_hz: float | None = None,
+                 mains_band_hz: float = 1.0) -> WindowFlags:
     """Which channels show, in which windows, an extreme peak-to-peak amplitude, a burst of
     muscle-band power (robust z over the channel's own windows) or mostly no signal.
 
@@ -92,7 +97,8 @@ def window_flags(data, *, sfreq_hz, no_signal, window_s=1.0, peak_to_peak_v=250e
                        no_signal=silent, muscle_note=note)
 
 
-def reject_windows(flags, *, channels, channel_share=0.25):
+def reject_windows(flags: WindowFlags, *, channels: np.ndarray,
+                   channel_share: float = 0.25) -> dict[str, np.ndarray]:
     """Per window, the reasons (keys of SEGMENT_WORDS) that hold on at least
     ``channel_share`` of ``channels`` (bool per channel, at least one channel needed)."""
     n_windows = flags.starts.size
@@ -109,7 +115,8 @@ def reject_windows(flags, *, channels, channel_share=0.25):
     return reasons
 
 
-def merge_segments(reasons, *, starts, stops, sfreq_hz):
+def merge_segments(reasons: Mapping[str, np.ndarray], *, starts: np.ndarray, stops: np.ndarray,
+                   sfreq_hz: float) -> list[Segment]:
     """Consecutive rejected windows merged into :class:`Segment` intervals."""
     rejected = np.zeros(starts.size, dtype=bool)
     for table in reasons.values():
@@ -133,7 +140,8 @@ def merge_segments(reasons, *, starts, stops, sfreq_hz):
     return segments
 
 
-def jump_segments(onsets_s, *, margin_s, duration_s, rejected=()):
+def jump_segments(onsets_s: Iterable[float], *, margin_s: float, duration_s: float,
+                  rejected: Iterable[Segment] = ()) -> list[Segment]:
     """Rejected intervals of ``margin_s`` on each side of each jump that most channels make
     together (clipped to the recording), except jumps already inside ``rejected`` segments."""
     segments = []
@@ -147,7 +155,7 @@ def jump_segments(onsets_s, *, margin_s, duration_s, rejected=()):
     return segments
 
 
-def combine_segments(*lists):
+def combine_segments(*lists: Iterable[Segment]) -> list[Segment]:
     """One list of segments in time order, overlapping or touching ones merged with the
     union of their reasons."""
     merged = []
@@ -163,7 +171,7 @@ def combine_segments(*lists):
     return merged
 
 
-def keep_mask(segments, *, n_times, sfreq_hz):
+def keep_mask(segments: Iterable[Segment], *, n_times: int, sfreq_hz: float) -> np.ndarray:
     """Samples outside every segment."""
     keep = np.ones(n_times, dtype=bool)
     for segment in segments:
@@ -183,8 +191,9 @@ class Blinks:
     onsets_s: list
 
 
-def count_blinks(data, *, sfreq_hz, ch_names, usable, keep_time=None, min_amplitude_v=40e-6,
-                 z_min=5.0):
+def count_blinks(data: np.ndarray, *, sfreq_hz: float, ch_names: Sequence[str], usable: np.ndarray,
+                 keep_time: np.ndarray | None = None, min_amplitude_v: float = 40e-6,
+                 z_min: float = 5.0) -> Blinks:
     """Count blinks: positive peaks of the mean frontal (Fp*, AF*) signal below 10 Hz that
     exceed both ``min_amplitude_v`` and ``z_min`` robust standard deviations.
 

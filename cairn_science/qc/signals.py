@@ -1,5 +1,7 @@
 """Signal preparation shared by the checks: drift removal, band limiting, windowed spectra."""
 
+from __future__ import annotations
+
 from dataclasses import dataclass
 
 import mne
@@ -9,7 +11,7 @@ from scipy import signal
 LOWPASS_TRANSITION_HZ = 5.0
 
 
-def highpass(data, *, sfreq_hz, l_freq_hz):
+def highpass(data: np.ndarray, *, sfreq_hz: float, l_freq_hz: float) -> np.ndarray:
     """Zero-phase FIR high-pass with mne's default transition band (passband from
     ``l_freq_hz``), the drift removal PREP applies before its channel checks. A recording
     shorter than the filter is only demeaned."""
@@ -24,7 +26,7 @@ def _filter_length(*, sfreq_hz, transition_hz):
     return int(np.ceil(3.3 * sfreq_hz / transition_hz))
 
 
-def lowpass_applies(*, sfreq_hz, h_freq_hz, n_times=None):
+def lowpass_applies(*, sfreq_hz: float, h_freq_hz: float, n_times: int | None = None) -> bool:
     """Whether :func:`lowpass` filters: its stopband fits below Nyquist and the recording is
     longer than the filter."""
     long_enough = n_times is None or n_times > _filter_length(
@@ -32,7 +34,7 @@ def lowpass_applies(*, sfreq_hz, h_freq_hz, n_times=None):
     return h_freq_hz + LOWPASS_TRANSITION_HZ < sfreq_hz / 2.0 and long_enough
 
 
-def lowpass(data, *, sfreq_hz, h_freq_hz):
+def lowpass(data: np.ndarray, *, sfreq_hz: float, h_freq_hz: float) -> np.ndarray:
     """Zero-phase FIR low-pass, passband to ``h_freq_hz``, stopband from 5 Hz above (PREP's
     45/50 Hz band edge); ``data`` is returned unchanged when that does not fit below the
     Nyquist frequency."""
@@ -42,7 +44,7 @@ def lowpass(data, *, sfreq_hz, h_freq_hz):
                                   h_trans_bandwidth=LOWPASS_TRANSITION_HZ, verbose=False)
 
 
-def windows_view(data, *, window_samples):
+def windows_view(data: np.ndarray, *, window_samples: int) -> np.ndarray:
     """Whole non-overlapping windows as a view of shape (n_channels, n_windows, window)."""
     n_windows = data.shape[-1] // window_samples
     return data[..., : n_windows * window_samples].reshape(
@@ -50,7 +52,9 @@ def windows_view(data, *, window_samples):
     )
 
 
-def window_periodograms(data, *, sfreq_hz, window_samples, step_samples, block_channels=8):
+def window_periodograms(data: np.ndarray, *, sfreq_hz: float, window_samples: int,
+                        step_samples: int,
+                        block_channels: int = 8) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Hann-windowed periodograms (one-sided power density, V**2/Hz) of every window.
 
     Returns ``(freqs_hz, starts, power)`` with power of shape (n_channels, n_windows, n_freqs);
@@ -82,7 +86,8 @@ class Spectrum:
     n_windows: int
 
 
-def welch_spectrum(data, *, sfreq_hz, window_s, keep_time=None):
+def welch_spectrum(data: np.ndarray, *, sfreq_hz: float, window_s: float,
+                   keep_time: np.ndarray | None = None) -> Spectrum:
     """Welch PSD with Hann windows of ``window_s`` and half overlap.
 
     ``keep_time`` (bool per sample) leaves out every window that touches rejected time, so
@@ -104,14 +109,15 @@ def welch_spectrum(data, *, sfreq_hz, window_s, keep_time=None):
     return Spectrum(freqs_hz=freqs_hz, power=power[:, use].mean(axis=1), n_windows=int(use.sum()))
 
 
-def harmonics_hz(power_line_hz, *, nyquist_hz):
+def harmonics_hz(power_line_hz: float | None, *, nyquist_hz: float) -> np.ndarray:
     """Mains frequency and its harmonics below the Nyquist frequency."""
     if not power_line_hz:
         return np.array([])
     return np.arange(power_line_hz, nyquist_hz, power_line_hz)
 
 
-def mains_mask(freqs_hz, *, power_line_hz, band_hz, nyquist_hz):
+def mains_mask(freqs_hz: np.ndarray, *, power_line_hz: float | None, band_hz: float,
+               nyquist_hz: float) -> np.ndarray:
     """True for frequencies within ``band_hz`` of the mains frequency or a harmonic."""
     mask = np.zeros(freqs_hz.shape, dtype=bool)
     for centre_hz in harmonics_hz(power_line_hz, nyquist_hz=nyquist_hz):

@@ -1,6 +1,13 @@
 """Recording verdict (pass, review, fail) from the protocol's thresholds, with reasons."""
 
+from __future__ import annotations
+
 from collections import Counter
+from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from .settings import QCSettings
 
 ORDER = ("pass", "review", "fail")
 MOSTLY_UNRELATED_SHARE = 0.5
@@ -10,8 +17,10 @@ def _worst(first, second):
     return first if ORDER.index(first) >= ORDER.index(second) else second
 
 
-def decide_verdict(*, settings, sfreq_hz, duration_s, n_channels, bad_reasons, n_with_signal,
-                   rejected_share, uncorrelated_share=0.0):
+def decide_verdict(*, settings: QCSettings, sfreq_hz: float, duration_s: float, n_channels: int,
+                   bad_reasons: Mapping[str, Sequence[str]], n_with_signal: int,
+                   rejected_share: float,
+                   uncorrelated_share: float = 0.0) -> tuple[str, list[str]]:
     """Verdict and its reasons in words.
 
     ``bad_reasons`` maps each bad channel to the words of its reasons. Fails: sampling rate
@@ -84,7 +93,8 @@ MOSTLY_SILENT_SHARE = 0.5
 _INPUTS = ("sfreq_hz", "duration_s", "n_with_signal", "rejected_share", "uncorrelated_share")
 
 
-def channel_verdict(*, settings, inputs, channels):
+def channel_verdict(*, settings: QCSettings, inputs: Mapping[str, float],
+                    channels: Mapping[str, tuple[str, Sequence[str]]]) -> tuple[str, list[str]]:
     """The verdict rule over plain data, for the checks and for people's decisions alike.
 
     ``inputs`` holds the recording's ``sfreq_hz``, ``duration_s``, ``n_with_signal``,
@@ -98,7 +108,7 @@ def channel_verdict(*, settings, inputs, channels):
                           **{key: inputs[key] for key in _INPUTS})
 
 
-def stored_inputs(result):
+def stored_inputs(result: Mapping) -> dict[str, float]:
     """The verdict's inputs of a stored result (``QCResult.as_dict()``). Results stored
     before they were kept whole are read from the rounded fields and the channels."""
     if "verdict_inputs" in result:
@@ -116,7 +126,8 @@ def stored_inputs(result):
             "uncorrelated_share": uncorrelated / max(1, len(usable))}
 
 
-def effective_verdict(result, statuses, *, settings):
+def effective_verdict(result: Mapping, statuses: Mapping[str, str], *,
+                      settings: QCSettings) -> dict:
     """The verdict of a stored result after people's channel decisions.
 
     ``result`` is ``QCResult.as_dict()`` as stored (never changed here); ``statuses`` maps
