@@ -1,21 +1,26 @@
 """Complexity-feature benchmark: time per window against antropy and mne-features.
 
 On the same seeded windows (``--windows`` of each of ``--lengths`` samples; white noise by
-default, ``--kind filtered`` for noise band-passed 1-40 Hz at 256 Hz) times, best of
-``--repeats``, after warming every function up (numba compile excluded):
+default, ``--kind filtered`` for noise band-passed 1-40 Hz at 256 Hz) times, after warming
+every function up (numba compile excluded), every implementation of a feature in turn for
+``--rounds`` rounds (A, B, C, A, B, C, ...; median times shown):
 
 * approximate entropy: ours vs antropy 0.2.3 ``app_entropy`` vs mne-features 0.3.2
   ``compute_app_entropy``;
 * sample entropy: ours vs antropy ``sample_entropy``;
 * Hurst exponent: ours vs mne-features ``compute_hurst_exp``;
-* DFA exponent: ours vs antropy ``detrended_fluctuation`` (no goal, for information).
+* DFA exponent: ours vs antropy ``detrended_fluctuation`` (goal: match, >= 1);
+* Hjorth mobility and complexity: ours (both feature functions on one window batch, as the
+  extractor calls them) vs antropy ``hjorth_params`` on the same array (goal: match, >= 1).
 
 Ours is called once on all windows (as a feature function does), antropy once per window
 (its API is 1-D), mne-features once on the (windows, samples) array (it loops inside); ours
 one window per call is shown too. Values are checked against every reference (max abs
 difference; mne-features' entropies take their tolerance from the ddof=1 SD, so ours is given
 r = 0.2 x sqrt(n / (n - 1)) for that comparison). Prints a table, the ratio fastest reference
-/ ours per feature and length with its goal (>= 5 for the entropies, >= 3 for Hurst), and the
+/ ours per feature and length (the median over rounds of each round's ratio, so that both
+sides of a ratio ran under the same load) with its goal (>= 5 for the entropies, >= 3 for
+Hurst, >= 1 for DFA and Hjorth), and the
 numba compile and cache-load times, measured in fresh processes with an empty cache
 directory. Run:  .venv/bin/python bench/features_windows.py [--windows 200] [--json]
 """
@@ -36,7 +41,8 @@ REPO = Path(__file__).resolve().parents[1]
 if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
-GOALS = {"approximate_entropy": 5.0, "sample_entropy": 5.0, "hurst_exponent": 3.0}
+GOALS = {"approximate_entropy": 5.0, "sample_entropy": 5.0, "hurst_exponent": 3.0,
+         "dfa_exponent": 1.0, "hjorth": 1.0}
 
 # First use in a fresh process: import, then each function on a 4 x 64 array.
 COMPILE_CHILD = r"""
@@ -65,13 +71,15 @@ def make_windows(*, n_windows, n_samples, kind, seed):
     return np.ascontiguousarray(x[:, 256:-256])
 
 
-def best_time(function, *, repeats):
-    best = np.inf
-    for _ in range(repeats):
-        start = time.perf_counter()
-        function()
-        best = min(best, time.perf_counter() - start)
-    return best
+def interleaved_times(functions, *, rounds):
+    """Seconds per call of each function, ``rounds`` rounds of each one in turn."""
+    times = {name: [] for name in functions}
+    for _ in range(rounds):
+        for name, function in functions.items():
+            start = time.perf_counter()
+            function()
+            times[name].append(time.perf_counter() - start)
+    return times
 
 
 def first_use_times():
@@ -85,6 +93,17 @@ def first_use_times():
                                  check=True, capture_output=True, text=True)
             runs.append(json.loads(out.stdout.strip().splitlines()[-1]))
     return runs[0], runs[1]
+
+
+def hjorth_ours(x):
+    """Mobility then complexity of each window, as the feature extractor computes them:
+    both feature functions on one batch (one channel per window here)."""
+    from cairn_science.features import timedomain
+    from cairn_science.features.batch import WindowBatch
+
+    batch = WindowBatch(x[:, None, :], sfreq_hz=256.0, ch_names=["x"], bands=[])
+    return np.concatenate([timedomain.hjorth_mobility(batch)[:, 0],
+                           timedomain.hjorth_complexity(batch)[:, 0]])
 
 
 def candidates(x):
@@ -126,6 +145,10 @@ def candidates(x):
             "ours, 1 window/call": ours_per_row(ours.dfa_exponent),
             "antropy": per_row(antropy.detrended_fluctuation),
         },
+        "hjorth": {
+            "ours": lambda: hjorth_ours(x),
+            "antropy": lambda: np.concatenate(antropy.hjorth_params(x)),
+        },
     }, {
         # the reference's definition where it differs from ours (mne-features' ddof=1 SD)
         ("approximate_entropy", "mne_features"): lambda: ours.approximate_entropy(x, r=r_ddof1),
@@ -137,7 +160,7 @@ def main(argv=None):
     parser.add_argument("--windows", type=int, default=200)
     parser.add_argument("--lengths", type=int, nargs="+", default=[500, 1024])
     parser.add_argument("--kind", choices=("noise", "filtered"), default="noise")
-    parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--rounds", type=int, default=3)
     parser.add_argument("--seed", type=int, default=5)
     parser.add_argument("--no-compile", action="store_true",
                         help="skip the fresh-process compile and cache-load timing")
@@ -149,8 +172,8 @@ def main(argv=None):
     if not args.no_compile:
         cold, cached = first_use_times()
         results["first_use_s"] = {"empty_cache": cold, "cached": cached}
-    print(f"{args.windows} {args.kind} windows per length; ms per window, best of "
-          f"{args.repeats}; max |ours - reference| in the last column\n")
+    print(f"{args.windows} {args.kind} windows per length; ms per window, median of "
+          f"{args.rounds} interleaved rounds; max |ours - reference| in the last column\n")
     print(f"{'feature':20} {'n':>5} {'implementation':22} {'ms/window':>10} {'max |diff|':>11}")
     ratios = []
     for n_samples in args.lengths:
@@ -159,13 +182,17 @@ def main(argv=None):
         table, ours_as_reference = candidates(x)
         for feature, implementations in table.items():
             ours_values = implementations["ours"]()
-            times = {}
+            diffs = {}
             for name, function in implementations.items():
                 values = function()  # warm-up (compiles ours on the first length) + check
                 comparable = ours_as_reference.get((feature, name))
                 reference_values = ours_values if comparable is None else comparable()
-                diff = float(np.nanmax(np.abs(values - reference_values)))
-                times[name] = best_time(function, repeats=args.repeats) / args.windows * 1e3
+                diffs[name] = float(np.nanmax(np.abs(values - reference_values)))
+            rounds = interleaved_times(implementations, rounds=max(1, args.rounds))
+            times = {name: float(np.median(t)) / args.windows * 1e3
+                     for name, t in rounds.items()}
+            for name in implementations:
+                diff = diffs[name]
                 label = "" if name.startswith("ours") else f"{diff:11.1e}"
                 print(f"{feature:20} {n_samples:5d} {name:22} {times[name]:10.4f} {label}")
                 results["features"].append({"feature": feature, "n_samples": n_samples,
@@ -175,7 +202,9 @@ def main(argv=None):
                                             else diff})
             references = {k: v for k, v in times.items() if not k.startswith("ours")}
             fastest = min(references, key=references.get)
-            ratios.append((feature, n_samples, fastest, references[fastest] / times["ours"]))
+            ratio = float(np.median([r / o for r, o in zip(rounds[fastest], rounds["ours"],
+                                                            strict=True)]))
+            ratios.append((feature, n_samples, fastest, ratio))
 
     print(f"\n{'feature':20} {'n':>5} {'fastest reference':18} {'ratio':>7} {'goal':>6}  met")
     results["ratios"] = []
