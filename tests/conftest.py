@@ -1,4 +1,9 @@
-"""Shared fixtures: people and sites for permission tests, and the small demo consortium."""
+"""Shared fixtures: people and sites for permission tests, and the small demo consortium.
+
+tests/unit loads this file too and runs without Django (``make unit`` switches pytest-django
+off; a fresh-venv test has no Django at all): import Django and the portal only inside the
+fixtures that need them (tests/unit/test_import_rules.py checks it).
+"""
 
 from pathlib import Path
 

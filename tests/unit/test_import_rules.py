@@ -323,13 +323,6 @@ _MOVE_DIFF = ("reuses the validation handler's file diff (_diff, _manifest_sha);
 HANDLER_MODULE_ALLOWANCE = {
     ("portal.datasets.services", "portal.datasets.jobs"): _MOVE_DIFF,
     ("portal.datasets.views", "portal.datasets.jobs"): _MOVE_DIFF,
-    ("portal.demo.bulk", "portal.datasets.jobs"): _MOVE_DIFF,
-    ("portal.demo.bulk", "portal.quality.jobs"):
-        "the demo takes sensor_positions from the quality handler; move it beside the quality "
-        "services",
-    ("portal.demo.bulk", "portal.training.jobs"):
-        "the demo takes _evaluation, _selection and plain from the training handler; move them "
-        "to a module of portal/training that the handler imports too",
 }
 
 
@@ -340,6 +333,34 @@ def test_handler_modules_are_imported_only_by_handler_modules():
 
 def test_audit_imports_no_app_but_accounts():
     _fail(audit_breaks(IMPORTS), "portal.audit imports an app other than accounts")
+
+
+#: What tests/unit loads at import time: it must run where Django is not installed (make unit,
+#: tests/integration/test_science_fresh_venv.py).
+UNIT_TEST_FILES = ("tests/__init__.py", "tests/conftest.py", "tests/helpers.py",
+                   "tests/real_eeg.py", "tests/unit", "fixtures")
+WEB_SIDE = ("django", "celery", "pytest_django", "portal", "rest_framework")
+
+
+def unit_test_breaks():
+    broken = []
+    for name in UNIT_TEST_FILES:
+        path = REPO / name
+        for file in ([path] if path.is_file() else sorted(path.rglob("*.py"))):
+            rel = file.relative_to(REPO)
+            module = ".".join(rel.with_suffix("").parts)
+            _, _, found = _scan_source(module, rel.as_posix(), file.read_text(encoding="utf-8"),
+                                       file.name == "__init__.py")
+            broken += [i.where() for i in found if not i.in_function
+                       and any(_under(t, web) for t in i.targets for web in WEB_SIDE)]
+    return broken
+
+
+def test_unit_tests_and_their_fixtures_load_no_web_side_at_import():
+    """tests/unit, the shared conftest and helpers and fixtures/ import Django, Celery or the
+    portal only inside a fixture or test (which then checks that pytest-django runs)."""
+    assert any(p.name == "conftest.py" for p in (REPO / "tests").iterdir())
+    _fail(unit_test_breaks(), "top-level imports of the web side where tests/unit loads them")
 
 
 def _project(target):
