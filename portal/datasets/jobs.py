@@ -5,8 +5,6 @@ blobs first (content-addressed, so a crash leaves only unreferenced blobs that t
 removes) and every database row of the new version is written in one transaction.
 """
 
-import hashlib
-import json
 import shutil
 from pathlib import Path
 
@@ -16,6 +14,8 @@ from cairn_science.archive import ArchiveError, extract_archive, list_files
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.datasets.blobs import StorageFull, storage_errors
+from portal.datasets.manifest import file_diff as _diff
+from portal.datasets.manifest import manifest_sha256 as _manifest_sha
 from portal.datasets.models import (
     Block,
     DatasetVersion,
@@ -67,19 +67,6 @@ def _known_recordings(site, study):
             "power_line_hz": rec.power_line_hz,
         }
     return known
-
-
-def _diff(parent_files, files):
-    added = sorted(set(files) - set(parent_files))
-    removed = sorted(set(parent_files) - set(files))
-    changed = sorted(p for p in set(files) & set(parent_files) if files[p] != parent_files[p])
-    return {"added": added, "removed": removed, "changed": changed,
-            "unchanged": len(set(files) & set(parent_files)) - len(changed)}
-
-
-def _manifest_sha(files):
-    rows = sorted((path, sha, size) for path, (sha, size) in files.items())
-    return hashlib.sha256(json.dumps(rows, separators=(",", ":")).encode()).hexdigest()
 
 
 def validate_upload(ctx):

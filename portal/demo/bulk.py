@@ -394,7 +394,7 @@ class _Builder:
     # ----------------------------------------------------------------- uploads and versions
 
     def datasets(self):
-        from portal.datasets.jobs import _diff, _manifest_sha  # as the upload job stores them
+        from portal.datasets.manifest import file_diff, manifest_sha256
         from portal.datasets.models import (
             DatasetVersion,
             Participant,
@@ -460,9 +460,9 @@ class _Builder:
                 upload = plan["uploads"][2 if step else 0]
                 versions.append(DatasetVersion(
                     site=site, study=self.study, number=step + 1, upload=upload, parent=parent,
-                    manifest_sha256=_manifest_sha(files), n_files=len(files),
+                    manifest_sha256=manifest_sha256(files), n_files=len(files),
                     total_bytes=sum(size for _, size in files.values()),
-                    diff=_diff(plan["files"][0] if step else {}, files),
+                    diff=file_diff(plan["files"][0] if step else {}, files),
                     created_at=upload.finished_at))
                 plan.setdefault("versions", []).append(versions[-1])
             DatasetVersion.objects.bulk_create(versions)
@@ -503,15 +503,15 @@ class _Builder:
 
     def quality(self):
         from cairn_science.qc.settings import QCSettings
-        from portal.quality.jobs import sensor_positions
         from portal.quality.models import QCChannel, QCRound, QCRun
+        from portal.quality.sensors import sensor_positions
         from portal.quality.services import QC_CODE_VERSION, settings_digest
 
         digest = settings_digest(self.qc_settings)
         settings = QCSettings.from_stored(self.qc_settings)  # as the quality job reads them
         rounds = []
         for plan in self.plans:
-            # No electrodes.tsv: the template positions by name, as the job stores them.
+            # No electrodes.tsv: the template positions by name, as the quality job stores them.
             plan["positions"] = sensor_positions(plan["channels"], None)
             plan["predictability"] = _predictability_skipped(plan["channels"], settings)
             for version in plan["versions"]:
@@ -683,7 +683,6 @@ class _Builder:
         from cairn_science.learning import metrics
         from cairn_science.learning.spec import DEFAULT_QC, TrainingSpec
         from portal.features.services import canonical_digest
-        from portal.training.jobs import _evaluation, _selection, plain
         from portal.training.models import (
             FoldScore,
             ModelRelease,
@@ -692,6 +691,7 @@ class _Builder:
             TrainingRun,
         )
         from portal.training.services import TRAINING_CODE_VERSION
+        from portal.training.summary import evaluation, plain, selection
 
         order = [lv[0] for lv in self.scale.levels]
         people, excluded = {}, 0
@@ -730,7 +730,7 @@ class _Builder:
             spec = spec_object.as_dict()
             results, folds = _evaluate(self.rng, models, rows, labels, n_splits)
             stats = {"paired": [], "permutation": None,
-                     "selection": _selection(spec_object, results, folds)}
+                     "selection": selection(spec_object, results, folds)}
             best = stats["selection"]["chosen"]
             if statistics.get("permutations"):
                 n_perm = statistics["permutations"]
@@ -762,7 +762,7 @@ class _Builder:
                                                 "no label of the chosen kind": 0},
                               "outer_folds": n_splits, "paired_folds": None, "generated": True},
                 results=plain({"models": results, "statistics": stats, "release_model": best,
-                               "labels": labels, "generated": True}),
+                             "labels": labels, "generated": True}),
                 created_by=self.analysts[self.sites[0].slug], created_at=when,
                 finished_at=when + datetime.timedelta(hours=2))
             run.save()
@@ -778,7 +778,7 @@ class _Builder:
                 card_sha256=fake_sha(self.seed, "card", number),
                 spec_sha256=fake_sha(self.seed, "features-json", number), trusted_types=[],
                 scores=plain({"evaluation": "pooled", "scheme": spec["validation"],
-                              **_evaluation(results[best]), "permutation": stats["permutation"],
+                              **evaluation(results[best]), "permutation": stats["permutation"],
                               "selection": stats["selection"], "generated": True}),
                 state=release_state, approved_by=self.lead if approved else None,
                 approved_at=when + datetime.timedelta(days=1) if approved else None,

@@ -11,6 +11,7 @@ from portal.datasets import blobs
 from portal.datasets.models import Recording
 from portal.jobs.services import enqueue
 from portal.quality.models import QCChannel, QCRound, QCRun
+from portal.quality.sensors import sensor_positions
 from portal.quality.services import refresh_decided, runs_of
 
 DATA_SUFFIXES = {".edf", ".bdf", ".vhdr", ".vmrk", ".eeg", ".set", ".fdt"}
@@ -68,17 +69,6 @@ def electrode_positions(raw):
         return None
     positions = montage.get_positions()["ch_pos"]
     return {name: tuple(float(v) for v in xyz) for name, xyz in positions.items()} or None
-
-
-def sensor_positions(ch_names, positions):
-    """Known positions (m) by channel name, for the sensor plot."""
-    import numpy as np
-
-    from cairn_science.qc.positions import resolve_positions
-
-    xyz = resolve_positions(ch_names, positions)
-    return {name: [round(float(v), 5) for v in row]
-            for name, row in zip(ch_names, xyz, strict=True) if np.all(np.isfinite(row))}
 
 
 @contextmanager
