@@ -10,7 +10,10 @@ header gives are followed only through :mod:`cairn_science.bids.companions`, whi
 them inside the recording's folder.
 """
 
+from __future__ import annotations
+
 import hashlib
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
@@ -35,7 +38,7 @@ class HeaderError(Exception):
     """A data file whose header cannot be used; the message says what is wrong."""
 
 
-def sha256_of(path):
+def sha256_of(path: str | os.PathLike) -> str:
     """Hex SHA-256 of a file, read in 1 MB chunks."""
     digest = hashlib.sha256()
     with open(path, "rb") as handle:
@@ -77,7 +80,7 @@ def _ascii(raw):
     return raw.decode("latin-1").strip()
 
 
-def read_fixed_edf_header(path):
+def read_fixed_edf_header(path: str | os.PathLike) -> tuple:
     """The first 256 bytes of an EDF/BDF file as fields; raises HeaderError."""
     with open(path, "rb") as handle:
         head = handle.read(EDF_FIXED_HEADER_BYTES)
@@ -104,7 +107,7 @@ def _number(text, what, kind=int):
                           "damaged or not EDF/BDF") from None
 
 
-def read_edf_header(path):
+def read_edf_header(path: str | os.PathLike) -> EdfHeader:
     """Parse an EDF/BDF header (fixed part and signal part); raises HeaderError."""
     fmt, head = read_fixed_edf_header(path)
     n_signals = _number(_ascii(head[252:256]), "number of signals")
@@ -144,7 +147,7 @@ def read_edf_header(path):
     )
 
 
-def check_edf_structure(path):
+def check_edf_structure(path: str | os.PathLike) -> list:
     """Header problems of an EDF/BDF file as ``(severity, message)`` pairs."""
     try:
         header = read_edf_header(path)
@@ -179,7 +182,7 @@ class BrainVisionHeader:
     comment_lines: list
 
 
-def read_vhdr(path):
+def read_vhdr(path: str | os.PathLike) -> BrainVisionHeader:
     """Parse a BrainVision header (INI-like text, decoded as mne decodes it); raises
     HeaderError. The file names it gives are not checked here: open them only through
     :func:`cairn_science.bids.companions.companion_files`."""
@@ -280,7 +283,8 @@ class HeaderFacts:
     channel_names: list
 
 
-def read_with_mne_bids(root, path, *, table_limits=None):
+def read_with_mne_bids(root: str | os.PathLike, path: str, *,
+                       table_limits: dict | None = None) -> HeaderFacts:
     """Open a data file with ``mne_bids.read_raw_bids`` (header only, no data loaded),
     through :func:`cairn_science.bids.recording.read_recording`.
 
@@ -308,7 +312,7 @@ EDF_ANNOTATION_CHANNELS = ("EDF Annotations", "BDF Annotations")
 BRAINVISION_SAMPLE_FORMATS = {"INT_16": 2, "INT_32": 4, "IEEE_FLOAT_32": 4}
 
 
-def _edf_facts(path: Path) -> "HeaderFacts | None":
+def _edf_facts(path: Path) -> HeaderFacts | None:
     """EDF/BDF facts as mne 1.13's ``read_raw_edf``/``read_raw_bdf`` gives them, or None."""
     fmt, head = read_fixed_edf_header(path)
     try:
@@ -354,7 +358,7 @@ def _edf_facts(path: Path) -> "HeaderFacts | None":
     return HeaderFacts(float(sfreq), float(n_times / sfreq), kept_names)
 
 
-def _brainvision_facts(root: Path, relpath: str, companions: list) -> "HeaderFacts | None":
+def _brainvision_facts(root: Path, relpath: str, companions: list) -> HeaderFacts | None:
     """BrainVision facts as mne 1.13's ``read_raw_brainvision`` gives them, or None.
 
     The header is decoded and parsed as mne does (its text up to ``[Comment]`` read by the
@@ -404,8 +408,8 @@ def _brainvision_facts(root: Path, relpath: str, companions: list) -> "HeaderFac
     return HeaderFacts(float(sfreq), float(n_samples / sfreq), names)
 
 
-def read_header_facts(root, relpath: str, *, companions: list | None = None
-                      ) -> "HeaderFacts | None":
+def read_header_facts(root: str | os.PathLike, relpath: str, *, companions: list | None = None
+                      ) -> HeaderFacts | None:
     """Sampling rate, duration and channel names from the data file's own header, equal to
     what ``mne_bids.read_raw_bids`` reads (tested on the BIDS examples and real recordings).
 

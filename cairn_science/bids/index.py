@@ -4,6 +4,9 @@ Two independent readers of the file names must agree on the participants, sessio
 runs and EEG data files; a difference points at a naming corner that one of them gets wrong.
 """
 
+from __future__ import annotations
+
+import os
 from pathlib import Path
 
 from .names import EEG_DATA_EXTENSIONS, check_path, is_eeg_data, walk_dataset
@@ -12,7 +15,7 @@ ENTITY_NAMES = {"sub": "subject", "ses": "session", "task": "task", "run": "run"
                 "acq": "acquisition"}
 
 
-def cairn_view(root):
+def cairn_view(root: str | os.PathLike) -> dict:
     """Participants, sessions, tasks, runs and EEG data files (with entities) by Cairn."""
     checks = [check_path(path) for path in walk_dataset(root).files]
     subject_files = [check for check in checks if check.ok and check.path.startswith("sub-")]
@@ -27,7 +30,7 @@ def cairn_view(root):
     }
 
 
-def pybids_view(root):
+def pybids_view(root: str | os.PathLike) -> dict:
     """The same facts from ``bids.BIDSLayout(root, validate=False)``."""
     import bids
 
@@ -51,7 +54,7 @@ def pybids_view(root):
     }
 
 
-def pybids_agreement(root):
+def pybids_agreement(root: str | os.PathLike) -> list:
     """Differences between pybids' index and Cairn's, as sentences (empty when they agree)."""
     ours, theirs = cairn_view(root), pybids_view(root)
     differences = []

@@ -6,6 +6,8 @@ complaints. Sidecars (.json, .tsv) may sit higher in the tree and leave out enti
 the inheritance principle allows.
 """
 
+from __future__ import annotations
+
 import os
 import re
 from dataclasses import dataclass, field
@@ -44,19 +46,19 @@ class NameCheck:
         return self.path.rpartition("/")[0]
 
 
-def is_eeg_data(check):
+def is_eeg_data(check: NameCheck) -> bool:
     """Whether a checked name is an EEG recording's main data file (not .vmrk/.eeg/.fdt)."""
     return (check.ok and check.kind == "data" and check.datatype == "eeg"
             and check.suffix == "eeg" and check.extension in EEG_DATA_EXTENSIONS)
 
 
-def split_name(name):
+def split_name(name: str) -> tuple:
     """``(stem, extension)``: the extension starts at the first dot (``.nii.gz`` stays whole)."""
     stem, dot, rest = name.partition(".")
     return stem, dot + rest
 
 
-def parse_entities(stem):
+def parse_entities(stem: str) -> tuple:
     """Entities (short names, in order) and suffix of a file stem; None where a part is no
     ``key-value`` pair."""
     tokens = stem.split("_")
@@ -198,7 +200,7 @@ def _check_entity_name(path, name, folder_entities, datatype):
     return NameCheck(path, kind, True, "", entities, suffix, extension, datatype)
 
 
-def check_path(path):
+def check_path(path: str) -> NameCheck:
     """Check one path (relative to the dataset root, POSIX) against the schema's names."""
     parts = path.split("/")
     name, folders = parts[-1], parts[:-1]
@@ -329,7 +331,7 @@ class DatasetFiles:
     links: list = field(default_factory=list)
 
 
-def walk_dataset(root):
+def walk_dataset(root: str | os.PathLike) -> DatasetFiles:
     """Relative POSIX paths of the dataset's files, leaving out hidden files, the folders the
     standard does not describe (code/, sourcedata/, derivatives/, ...), ``.bidsignore`` and
     symbolic links (listed apart)."""

@@ -5,7 +5,10 @@ byte-order mark or the wrong number of values on one line must give the uploader
 naming the file and line, never a crash of the worker.
 """
 
+from __future__ import annotations
+
 import json
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -137,7 +140,7 @@ def _read_lines(path, target, *, max_rows, max_size_bytes, kind):
     return [line.removesuffix("\n").removesuffix("\r") for line in lines]
 
 
-def split_tsv_line(line):
+def split_tsv_line(line: str) -> tuple:
     """Values of one TSV line; a value may be wrapped in double quotes ("" inside = ").
 
     Returns ``(values, None)`` or ``(values_so_far, what_is_wrong)``.
@@ -175,7 +178,8 @@ def split_tsv_line(line):
             i = k + 1
 
 
-def read_tsv(path, *, relpath=None, max_rows=None, max_size_bytes=None):
+def read_tsv(path: str | os.PathLike, *, relpath: str | None = None, max_rows: int | None = None,
+             max_size_bytes: int | None = None) -> Table:
     """Read a BIDS TSV file into a :class:`Table`; never raises on bad content.
 
     ``max_rows`` and ``max_size_bytes`` bound what is read (defaults by the kind of table,
@@ -277,7 +281,8 @@ def _reject_constant(name):
     raise ValueError(f"{name} is not allowed in JSON")
 
 
-def read_json(path, *, relpath=None, max_size_bytes=MAX_JSON_BYTES):
+def read_json(path: str | os.PathLike, *, relpath: str | None = None,
+              max_size_bytes: int = MAX_JSON_BYTES) -> JsonDocument:
     """Read a JSON sidecar that must hold one object; never raises on bad content. A file
     larger than ``max_size_bytes`` is reported without being read."""
     document = JsonDocument(_relative(path, relpath))

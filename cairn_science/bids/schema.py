@@ -4,6 +4,8 @@ Everything the checks need to know about names, sidecar fields and table columns
 here, so that a newer schema changes Cairn's rules without code changes.
 """
 
+from __future__ import annotations
+
 from dataclasses import dataclass
 from functools import cache, lru_cache
 
@@ -45,45 +47,45 @@ class NameRule:
 
 
 @lru_cache(maxsize=1)
-def load():
+def load() -> object:
     """The BIDS schema as bidsschematools ships it."""
     from bidsschematools import schema
 
     return schema.load_schema()
 
 
-def version():
+def version() -> str:
     """BIDS version of the loaded schema, e.g. ``"1.11.2"``."""
     return str(load().bids_version)
 
 
 @lru_cache(maxsize=1)
-def entity_order():
+def entity_order() -> tuple:
     """Entity long names in the order they must appear in a file name."""
     return tuple(load().rules.entities)
 
 
 @lru_cache(maxsize=1)
-def entity_short_names():
+def entity_short_names() -> dict:
     """Map of short name in file names (``acq``) to the schema's long name (``acquisition``)."""
     entities = load().objects.entities
     return {entities[name]["name"]: name for name in entities}
 
 
 @cache
-def entity_pattern(entity):
+def entity_pattern(entity: str) -> str:
     """Regular expression (unanchored) that an entity's value must match."""
     spec = load().objects.entities[entity]
     return load().objects.formats[spec["format"]]["pattern"]
 
 
 @lru_cache(maxsize=1)
-def datatypes():
+def datatypes() -> frozenset:
     return frozenset(load().objects.datatypes)
 
 
 @lru_cache(maxsize=1)
-def opaque_folders():
+def opaque_folders() -> frozenset:
     """Top-level folders whose content the standard does not name (code, sourcedata, ...)."""
     raw = load().rules.directories.raw
     return frozenset(
@@ -125,7 +127,7 @@ def _rules_from(origin, rule):
 
 
 @lru_cache(maxsize=1)
-def name_rules():
+def name_rules() -> tuple:
     """Every entity-based naming rule of raw datasets (data files, sidecars, scans, sessions)."""
     files = load().rules.files
     rules = []
@@ -139,7 +141,7 @@ def name_rules():
 
 
 @lru_cache(maxsize=1)
-def top_level_names():
+def top_level_names() -> tuple:
     """Exact top-level paths and (stem, extensions) pairs the standard names."""
     files = load().rules.files.common
     paths, stems = set(), []
@@ -153,13 +155,13 @@ def top_level_names():
 
 
 @lru_cache(maxsize=1)
-def readme_names():
+def readme_names() -> tuple:
     rule = load().rules.files.common.core.README
     return tuple(rule["stem"] + extension for extension in rule["extensions"])
 
 
 @lru_cache(maxsize=1)
-def eeg_sidecar_fields():
+def eeg_sidecar_fields() -> tuple:
     """Required and recommended ``*_eeg.json`` fields, from the schema's EEG sidecar rules.
 
     Only rule groups that apply to every EEG data file (selectors on datatype and suffix
@@ -187,7 +189,7 @@ def metadata_spec(field: str) -> dict | None:
 
 
 @cache
-def table_rule(group, name):
+def table_rule(group: str, name: str) -> tuple:
     """A tabular-data rule, e.g. ``("eeg", "EEGChannels")``: initial and required columns."""
     rule = load().rules.tabular_data[group][name]
     columns = load().objects.columns
@@ -200,10 +202,10 @@ def table_rule(group, name):
     return initial, required
 
 
-def column_enum(key):
+def column_enum(key: str) -> tuple | None:
     """Allowed values of a table column (e.g. ``type__channels``), or None."""
     return tuple(load().objects.columns[key].get("enum", ())) or None
 
 
-def column_pattern(key):
+def column_pattern(key: str) -> str | None:
     return load().objects.columns[key].get("pattern")

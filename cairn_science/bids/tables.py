@@ -4,6 +4,8 @@ Column names, their order and allowed values come from the schema's tabular-data
 each check reports on the table once and returns the parsed content the later checks use.
 """
 
+from __future__ import annotations
+
 import math
 import re
 from dataclasses import dataclass
@@ -14,7 +16,7 @@ from .channel_types import MISSING, type_for_unknown
 COMMON_TYPES = frozenset({"EEG", "EOG", "ECG", "EMG", "MISC", "TRIG", "REF"})
 
 
-def as_number(text):
+def as_number(text: str) -> float | None:
     """A finite float from a table cell, or None."""
     try:
         value = float(text)
@@ -42,7 +44,7 @@ def _initial_columns(table, report, *, initial, what):
     return True
 
 
-def check_participants(tree, report, *, folders):
+def check_participants(tree, report, *, folders) -> dict:
     """Check participants.tsv against the ``sub-*`` folders; return {label: line}."""
     path = "participants.tsv"
     if not tree.exists(path):
@@ -93,7 +95,7 @@ class Channel:
     line: int
 
 
-def check_channels(tree, report, path):
+def check_channels(tree, report, path: str) -> list | None:
     """Check a channels.tsv; return its named channels, or None when it cannot be compared
     with a data file (no header, wrong columns, or rows that could not be read).
 
@@ -185,7 +187,7 @@ class Event:
     line: int
 
 
-def check_events(tree, report, path):
+def check_events(tree, report, path: str) -> list | None:
     """Check an events.tsv; return its events (rows with problems left out) or None.
 
     An onset of n/a (BIDS allows n/a in any cell) is a warning; the event is left out, as
@@ -241,7 +243,7 @@ class ScansRow:
     row: dict
 
 
-def check_scans(tree, report, path):
+def check_scans(tree, report, path: str) -> dict:
     """Check a scans.tsv; return {data file path from the root: ScansRow}."""
     table = tree.table(path)
     tree.take_problems(report, table)

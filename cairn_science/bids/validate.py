@@ -7,7 +7,11 @@ tables, workload ratings on the study's scale, and nothing that identifies a par
 Every problem names its file, and its line and field where there is one.
 """
 
+from __future__ import annotations
+
 import math
+import os
+from collections.abc import Callable
 from dataclasses import asdict
 from pathlib import Path
 
@@ -99,7 +103,7 @@ class _Context:
         return True
 
 
-def eeg_data_files(root):
+def eeg_data_files(root: str | os.PathLike) -> list:
     """EEG data files of a dataset (paths relative to the root) whose names the schema
     accepts."""
     checks = [check_path(path) for path in walk_dataset(root).files]
@@ -598,9 +602,11 @@ def _findings_to_problems(report, deid):
                    line=finding.line, field=finding.field, code="deid.identifier")
 
 
-def validate_dataset(root, *, ratings=None, scale=None, on_file=None, deid="refuse",
-                     read_data=True, known=None, duration_tolerance_s=1.0,
-                     sfreq_tolerance_hz=0.01, table_limits=None):
+def validate_dataset(root: str | os.PathLike, *, ratings: dict | None = None,
+                     scale: dict | None = None, on_file: Callable | None = None,
+                     deid: str = "refuse", read_data: bool = True, known: dict | None = None,
+                     duration_tolerance_s: float = 1.0, sfreq_tolerance_hz: float = 0.01,
+                     table_limits: dict | None = None) -> Report:
     """Check a BIDS EEG dataset folder; return a :class:`Report`.
 
     Parameters

@@ -20,6 +20,8 @@ kernel in a process). The cache lives in ``__pycache__`` beside this file, or un
 parallel.
 """
 
+from __future__ import annotations
+
 import math
 from functools import lru_cache
 
@@ -158,7 +160,7 @@ def _entropy_kernel(x, order, m, tolerance, approximate):
     return out
 
 
-def approximate_entropy(x, m=2, r=0.2):
+def approximate_entropy(x: np.ndarray, m: int = 2, r: float = 0.2) -> np.ndarray:
     """Approximate entropy (Pincus 1991) of each row, in nats.
 
     ``phi(k)`` is the mean over the row's ``n - k + 1`` templates of length ``k`` of the log
@@ -178,7 +180,7 @@ def approximate_entropy(x, m=2, r=0.2):
     return _entropy_kernel(x, order, m, tolerance, True)
 
 
-def sample_entropy(x, m=2, r=0.2):
+def sample_entropy(x: np.ndarray, m: int = 2, r: float = 0.2) -> np.ndarray:
     """Sample entropy (Richman & Moorman 2000) of each row, in nats.
 
     ``-log(A / B)``, with ``B`` the number of pairs of distinct templates of length ``m`` and
@@ -265,7 +267,7 @@ def _slopes(x, y):
     return (k * (y @ x) - sx * y.sum(axis=1)) / (k * sx2 - sx * sx)
 
 
-def hurst_exponent(x):
+def hurst_exponent(x: np.ndarray) -> np.ndarray:
     """Rescaled-range Hurst exponent of each row, as mne-features' ``compute_hurst_exp``.
 
     For each of about 20 sub-series lengths ``n`` (log-spaced from 16 to half the row), the
@@ -297,7 +299,7 @@ def _dfa_sizes(n_samples):
     return np.array(sizes, dtype=np.int64)
 
 
-def dfa_exponent(x):
+def dfa_exponent(x: np.ndarray) -> np.ndarray:
     """Detrended fluctuation exponent of each row, as antropy's ``detrended_fluctuation``.
 
     The profile (cumulative sum of the row less its mean) is cut into non-overlapping boxes of

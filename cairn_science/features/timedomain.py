@@ -3,12 +3,14 @@ None) or on one band-filtered signal (``batch.signal(band)``); all work on the w
 (n_windows, n_channels, n_samples) array at once and reduce over the last axis.
 """
 
+from __future__ import annotations
+
 import numpy as np
 
 from .registry import Feature
 
 
-def line_length(batch, band=None):
+def line_length(batch, band=None) -> np.ndarray:
     """Mean absolute difference of consecutive samples (µV per sample):
     ``mean(|x[n+1] - x[n]|)`` over the window's n_samples - 1 differences. This is
     mne_features' ``compute_line_length`` (the mean, not Esteller's sum; the sum is this value
@@ -17,7 +19,7 @@ def line_length(batch, band=None):
     return np.abs(np.diff(x, axis=-1)).mean(axis=-1)
 
 
-def teager_kaiser_energy(batch, band=None):
+def teager_kaiser_energy(batch, band=None) -> np.ndarray:
     """Mean Teager–Kaiser energy (µV²): ``mean(x[n]² - x[n-1] x[n+1])`` over n = 1 …
     n_samples - 2, the interior samples. For A·sin(ωn + φ) every term is A² sin²(ω).
     mne_features' ``compute_teager_kaiser_energy`` applies the same operator, not to the
@@ -27,7 +29,7 @@ def teager_kaiser_energy(batch, band=None):
     return (x[..., 1:-1] ** 2 - x[..., :-2] * x[..., 2:]).mean(axis=-1)
 
 
-def peak_count(batch, band=None):
+def peak_count(batch, band=None) -> np.ndarray:
     """Number of strict local maxima in the window: samples n (1 ≤ n ≤ n_samples - 2) with
     ``x[n-1] < x[n] > x[n+1]``. The first and last samples never count, and a flat top (two
     or more equal samples) does not count. A count per window, so it scales with the window
@@ -37,7 +39,7 @@ def peak_count(batch, band=None):
     return ((middle > x[..., :-2]) & (middle > x[..., 2:])).sum(axis=-1).astype(float)
 
 
-def zero_crossings(batch, band=None, *, remove_mean=True):
+def zero_crossings(batch, band=None, *, remove_mean: bool = True) -> np.ndarray:
     """Number of sign changes between consecutive samples, the sign taken with
     ``numpy.signbit`` (a sample exactly 0 counts as positive), as ``antropy.num_zerocross``
     (with normalize=False) counts them. By default the window's mean is removed first, per

@@ -316,8 +316,10 @@ def _p(null, observed):
     return (1.0 + n_ge) / (1.0 + null.size)
 
 
-def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutations=200, seed=0,
-                           metric="balanced_accuracy", observed=None, labels=None) -> dict:
+def block_permutation_test(predict_fn: Callable, y, blocks, participants, *,
+                           n_permutations: int = 200, seed: int = 0,
+                           metric: str | Callable = "balanced_accuracy", observed=None,
+                           labels=None) -> dict:
     """Permutation test of a whole cross-validation, permuting labels block by block.
 
     ``y`` must be constant within each block (e.g. a recording or a condition block of one
@@ -342,10 +344,10 @@ def block_permutation_test(predict_fn, y, blocks, participants, *, n_permutation
     return out
 
 
-def selection_permutation_test(predict_model, y, blocks, participants, *, n_models, chosen,
-                               n_permutations=200, seed=0, metric="balanced_accuracy",
-                               observed=None, labels=None, scored=None,
-                               stop_early=True) -> dict:
+def selection_permutation_test(predict_model: Callable, y, blocks, participants, *, n_models: int,
+                               chosen: int, n_permutations: int = 200, seed: int = 0,
+                               metric: str | Callable = "balanced_accuracy", observed=None,
+                               labels=None, scored=None, stop_early: bool = True) -> dict:
     """Permutation test of choosing the best of several models, permuting whole blocks.
 
     ``predict_model(y_permuted, k)`` runs candidate ``k``'s whole cross-validation on the
@@ -475,8 +477,9 @@ def selection_report(fold_scores, *, chosen, n_train, n_test, alpha=0.05) -> dic
 # --------------------------------------------------------------------------- bootstrap
 
 
-def participant_bootstrap_ci(y_true, y_pred, participants, *, metric="balanced_accuracy",
-                             n_boot=1000, level=0.95, seed=0, labels=None) -> dict:
+def participant_bootstrap_ci(y_true, y_pred, participants, *, metric: str = "balanced_accuracy",
+                             n_boot: int = 1000, level: float = 0.95, seed: int = 0,
+                             labels=None) -> dict:
     """Percentile bootstrap interval of a pooled score, resampling participants.
 
     Each replicate draws as many participants as there are, with replacement, and pools all

@@ -252,7 +252,7 @@ class Jumps:
 
 def find_jumps(data: np.ndarray, *, sfreq_hz: float, reference: np.ndarray, z_min=10.0,
                step_min_v=40e-6, abrupt_ratio=2.0, shared_z_min=4.0, shared_share=0.25,
-               min_gap_s=0.1, keep_time=None, no_signal=None):
+               min_gap_s=0.1, keep_time=None, no_signal=None) -> Jumps:
     """Sudden jumps (electrode pops, breaks between joined recordings, amplifier resets).
 
     A jump is a sample-to-sample step of one channel that exceeds both ``z_min`` robust
@@ -297,7 +297,7 @@ def find_jumps(data: np.ndarray, *, sfreq_hz: float, reference: np.ndarray, z_mi
 def check_jumps(data: np.ndarray, *, sfreq_hz: float, reference: np.ndarray, z_min=10.0,
                 step_min_v=40e-6, abrupt_ratio=2.0, shared_z_min=4.0, rate_max_per_min=1.0,
                 min_count=2, shared_share=0.25, min_gap_s=0.1, keep_time=None, no_signal=None,
-                jumps=None):
+                jumps=None) -> ChannelCheck:
     """A channel's own sudden jumps (see :func:`find_jumps`; jumps most channels share are
     not counted against any channel). Pass ``jumps`` to reuse them; ``keep_time`` then
     limits the count to kept time.
