@@ -117,6 +117,19 @@ def _mlp(random_state, **params):
     return MLPClassifier(random_state=random_state, **params)
 
 
+def _recurrent(cell, bidirectional):
+    def factory(random_state, **params):
+        from .recurrent import RecurrentClassifier
+
+        return RecurrentClassifier(cell=cell, bidirectional=bidirectional,
+                                   random_state=random_state, **params)
+
+    return factory
+
+
+_FIXED = "is fixed by the learner's name (gru, lstm, bigru, bilstm): choose that instead"
+
+
 _POSITIVE = Interval(Real, 0, None, closed="neither")
 _NON_NEGATIVE = Interval(Real, 0, None, closed="left")
 _COUNT = Interval(Integral, 1, None, closed="left")
@@ -132,6 +145,11 @@ _FOREST = {"n_estimators": [_COUNT], "max_depth": [Interval(Integral, 1, None, c
                                                           Interval(Real, 0, 1,
                                                                    closed="right")],
            "class_weight": [Options(("balanced", "balanced_subsample")), None]}
+_RECURRENT = {"hidden": [ListOf(_COUNT, min_length=1, what="layer sizes (whole numbers of "
+                                                          "at least 1)")],
+              "n_windows": [_COUNT], "epochs": [_COUNT], "batch_size": [_COUNT],
+              "learning_rate": [_POSITIVE], "weight_decay": [_NON_NEGATIVE]}
+
 LEARNERS: dict[str, Learner] = {
     learner.name: learner
     for learner in (
@@ -185,6 +203,19 @@ LEARNERS: dict[str, Learner] = {
                                                                 "of at least 1)")],
                              "alpha": [_NON_NEGATIVE], "learning_rate_init": [_POSITIVE],
                              "max_iter": [_COUNT], "n_iter_no_change": [_COUNT]}),
+        *(Learner(name, f"{title} over the sequence of the window and the 4 before it in "
+                  "its recording (only windows of its own recording and fold part; a "
+                  "recording's first windows padded with its earliest), layers of 64 then "
+                  "32 units, a dense head with one unit per class; Adam, 30 epochs, no early "
+                  "stopping (PyTorch, CPU; cairn_science.learning.recurrent).",
+                  {"hidden": (64, 32), "n_windows": 5, "epochs": 30, "batch_size": 64,
+                   "learning_rate": 0.003}, _recurrent(cell, bidirectional),
+                  refused=(("cell", _FIXED), ("bidirectional", _FIXED)), label=title,
+                  constraints=_RECURRENT)
+          for name, title, cell, bidirectional in (
+              ("gru", "GRU network", "gru", False), ("lstm", "LSTM network", "lstm", False),
+              ("bigru", "bidirectional GRU network", "gru", True),
+              ("bilstm", "bidirectional LSTM network", "lstm", True))),
     )
 }
 

@@ -48,7 +48,10 @@ These classes must stay importable as ``cairn_science.learning.recurrent.<name>`
 release names them by that path.
 """
 
+from __future__ import annotations
+
 import numbers
+from typing import Any
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin, clone
@@ -63,7 +66,7 @@ CELLS = ("gru", "lstm")
 MAX_INT = np.iinfo(np.int32).max
 
 
-def with_sequence_keys(X, recordings, starts):
+def with_sequence_keys(X: Any, recordings: Any, starts: Any) -> np.ndarray:
     """``X`` with the two key columns a recurrent learner reads appended: the id of each
     row's recording (any number, equal for rows of one recording) and its window start."""
     X = np.asarray(X, dtype=float)
@@ -78,7 +81,7 @@ def with_sequence_keys(X, recordings, starts):
     return np.column_stack([X, recordings, starts])
 
 
-def sequence_rows(recordings, starts, n_windows):
+def sequence_rows(recordings: Any, starts: Any, n_windows: int) -> np.ndarray:
     """(n_rows, n_windows) row indices: row i's sequence, oldest first, ending at a row of
     i's own window. Only rows with i's recording id take part; missing predecessors are the
     recording's earliest window repeated (edge padding); rows with the same (recording,
@@ -204,9 +207,10 @@ class RecurrentClassifier(ClassifierMixin, BaseEstimator):
     ``seed_``.
     """
 
-    def __init__(self, cell="gru", bidirectional=False, hidden=(64, 32), n_windows=5,
-                 epochs=30, batch_size=64, learning_rate=0.003, weight_decay=0.0,
-                 random_state=None):
+    def __init__(self, cell: str = "gru", bidirectional: bool = False,
+                 hidden: tuple[int, ...] | list[int] = (64, 32), n_windows: int = 5,
+                 epochs: int = 30, batch_size: int = 64, learning_rate: float = 0.003,
+                 weight_decay: float = 0.0, random_state: Any = None):
         self.cell = cell
         self.bidirectional = bidirectional
         self.hidden = hidden
@@ -245,7 +249,7 @@ class RecurrentClassifier(ClassifierMixin, BaseEstimator):
         return _net_class()(self.cell, bool(self.bidirectional), n_inputs, hidden,
                             self.classes_.size)
 
-    def fit(self, X, y):
+    def fit(self, X: Any, y: Any) -> RecurrentClassifier:
         params = self._checked()
         X, y = validate_data(self, X, y, dtype=np.float64)
         check_classification_targets(y)
@@ -281,9 +285,9 @@ class RecurrentClassifier(ClassifierMixin, BaseEstimator):
                              for name, value in net.state_dict().items()}
         return self
 
-    def predict_proba(self, X):
-        """Class probabilities (softmax of the head), one row per row of X, each from the
-        row's sequence among the rows of X."""
+    def predict_proba(self, X: Any) -> np.ndarray:
+        """Class probabilities (softmax of the head, in float64), one row per row of X, each
+        from the row's sequence among the rows of X."""
         check_is_fitted(self, "weights_")
         params = self._checked()
         X = validate_data(self, X, dtype=np.float64, reset=False)
@@ -294,10 +298,12 @@ class RecurrentClassifier(ClassifierMixin, BaseEstimator):
                                  for name, value in self.weights_.items()})
             net.eval()
             with torch.no_grad():
-                logits = net(torch.from_numpy(sequences))
-                return torch.softmax(logits, dim=1).double().numpy()
+                logits = net(torch.from_numpy(sequences)).numpy().astype(np.float64)
+        logits -= logits.max(axis=1, keepdims=True)  # softmax in float64: rows sum to 1
+        probabilities = np.exp(logits)
+        return probabilities / probabilities.sum(axis=1, keepdims=True)
 
-    def predict(self, X):
+    def predict(self, X: Any) -> np.ndarray:
         return self.classes_.take(np.argmax(self.predict_proba(X), axis=1))
 
 
@@ -310,10 +316,10 @@ class CurrentWindow(ClassifierMixin, BaseEstimator):
     of each row alone, the two sequence-key columns dropped. ``fit`` passes ``groups`` on
     when the estimator takes them."""
 
-    def __init__(self, estimator):
+    def __init__(self, estimator: Any):
         self.estimator = estimator
 
-    def fit(self, X, y, groups=None):
+    def fit(self, X: Any, y: Any, groups: Any = None) -> CurrentWindow:
         X = validate_data(self, X, dtype=None, ensure_all_finite=False)
         kwargs = ({"groups": groups} if groups is not None
                   and has_fit_parameter(self.estimator, "groups") else {})
@@ -326,24 +332,24 @@ class CurrentWindow(ClassifierMixin, BaseEstimator):
         return _split(validate_data(self, X, dtype=None, ensure_all_finite=False,
                                     reset=False))[0]
 
-    def predict(self, X):
+    def predict(self, X: Any) -> np.ndarray:
         return self.estimator_.predict(self._features(X))
 
     @available_if(_inner_has("predict_proba"))
-    def predict_proba(self, X):
+    def predict_proba(self, X: Any) -> np.ndarray:
         return self.estimator_.predict_proba(self._features(X))
 
     @available_if(_inner_has("decision_function"))
-    def decision_function(self, X):
+    def decision_function(self, X: Any) -> np.ndarray:
         return self.estimator_.decision_function(self._features(X))
 
 
-def reads_sequences(estimator):
+def reads_sequences(estimator: Any) -> bool:
     """True for an (unfitted) learner that reads sequence keys."""
     return isinstance(estimator, RecurrentClassifier)
 
 
-def uses_sequences(model):
+def uses_sequences(model: Any) -> bool:
     """True when a ModelSpec has a recurrent learner (alone, bagged or among the members of
     a stacking): its input needs the sequence keys."""
     from .learners import make_learner
@@ -352,7 +358,7 @@ def uses_sequences(model):
                for name in model.base_learners)
 
 
-def confine_members(members):
+def confine_members(members: list[tuple[str, Any]]) -> list[tuple[str, Any]]:
     """A stacking's (name, learner) list: when any member reads sequences, every member that
     does not is wrapped in :class:`CurrentWindow` (it must not see the keys)."""
     if not any(reads_sequences(estimator) for _, estimator in members):
@@ -361,7 +367,7 @@ def confine_members(members):
             for name, estimator in members]
 
 
-def release_inputs(estimator, values, starts):
+def release_inputs(estimator: Any, values: Any, starts: Any) -> np.ndarray:
     """A release's model inputs for one recording: ``values`` (windows x the release's
     columns), with the sequence keys appended (one recording; the windows' starts) when the
     model was fitted with them (it takes 2 more columns than the release lists)."""

@@ -48,6 +48,7 @@ from cairn_science.learning.ensembles import (
     GroupStackingClassifier,
 )
 from cairn_science.learning.learners import LEARNERS, make_learner
+from cairn_science.learning.recurrent import reads_sequences, with_sequence_keys
 
 REPO = Path(__file__).resolve().parents[2]
 BAGGING = "cairn_science.learning.ensembles.GroupBaggingClassifier"
@@ -527,7 +528,8 @@ def test_learner_table():
     """The brief's configuration of each learner (no external source) and the project rule
     that none starts processes of its own (n_jobs unset)."""
     assert set(LEARNERS) == {"lda", "logistic", "linear_svm", "rbf_svm", "knn", "random_forest",
-                             "extra_trees", "hist_gradient_boosting", "mlp"}
+                             "extra_trees", "hist_gradient_boosting", "mlp", "gru", "lstm",
+                             "bigru", "bilstm"}
     params = {name: make_learner(name).get_params() for name in LEARNERS}
     assert params["lda"]["solver"] == "lsqr" and params["lda"]["shrinkage"] == "auto"
     assert params["linear_svm"]["estimator__kernel"] == "linear"
@@ -550,6 +552,8 @@ def test_every_learner_fits_predicts_and_round_trips(wine, name):
     search tree counts its queries; those counters are not content); and the skops release
     (trusting exactly what trusted_types lists) predicts identically with the same digest."""
     X, y, groups = wine
+    if reads_sequences(make_learner(name)):  # a recurrent learner: each row a recording of
+        X = with_sequence_keys(X, np.arange(y.size), np.zeros(y.size))  # one window
     fit_rows, test_rows = train_test_split(np.arange(y.size), test_size=0.5, stratify=y,
                                            random_state=0)
     kwargs = {"groups": groups[fit_rows]} if LEARNERS[name].grouped else {}

@@ -58,13 +58,6 @@ ALLOWED = {
         "paired_comparison", "participant_bootstrap_ci", "per_site", "scores",
         "selection_permutation_test", "selection_report", "smallest_p", "summarise",
     ],
-    "learning/recurrent.py": [
-        "CurrentWindow.__init__", "CurrentWindow.decision_function", "CurrentWindow.fit",
-        "CurrentWindow.predict", "CurrentWindow.predict_proba", "RecurrentClassifier.__init__",
-        "RecurrentClassifier.fit", "RecurrentClassifier.predict",
-        "RecurrentClassifier.predict_proba", "confine_members", "reads_sequences", "release_inputs",
-        "sequence_rows", "uses_sequences", "with_sequence_keys",
-    ],
     "learning/spec.py": ["SpecError.__init__", "comparison_problems", "model_problems"],
     "learning/validation.py": ["assert_disjoint", "describe_outer", "inner_splits", "outer_folds"],
     "qc/checks.py": [
