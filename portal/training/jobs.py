@@ -12,29 +12,15 @@ from portal.datasets import blobs
 from portal.jobs.services import JobError, enqueue
 from portal.training.fingerprint import training_fingerprint
 from portal.training.models import FoldScore, ModelRelease, RunState, TrainingRun
+from portal.training.summary import best_model as _best
+from portal.training.summary import evaluation as _evaluation
+from portal.training.summary import plain
+from portal.training.summary import selection as _selection
 
 CAUTION = ("Research use only. Not a medical device; not for decisions about any person's "
            "fitness for duty, health or employment. Trained on research participants under "
            "ethics approval; use it only within an approved research protocol and under "
            "local data-protection law.")
-
-
-def plain(value):
-    """JSON-safe copy: NaN and infinities become None (PostgreSQL's jsonb refuses them),
-    numpy scalars become Python numbers."""
-    import math
-
-    import numpy as np
-
-    if isinstance(value, dict):
-        return {str(k): plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [plain(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 @lru_cache(maxsize=2)
@@ -158,35 +144,6 @@ def run_fold(ctx):
         if run.folds.count() >= run.n_expected and TrainingRun.objects.filter(
                 pk=run.pk, finish_queued=False).update(finish_queued=True):
             enqueue("training.finish", target=run, study=run.study, params={"run": run.pk})
-
-
-def _best(spec, results):
-    if spec.release.get("model"):
-        return spec.release["model"]
-    return max(results, key=lambda name: (results[name]["per_fold"]["balanced_accuracy"]["mean"],
-                                          name))
-
-
-def _selection(spec, results, outer_scores):
-    """How the release model was chosen: named in the spec, the only model, or the best of
-    several by per-fold balanced accuracy, with the corrected paired test of its lead over
-    each other candidate on the same outer folds."""
-    from cairn_science.learning import metrics
-
-    chosen = _best(spec, results)
-    if spec.release.get("model"):
-        return {"how": "named", "chosen": chosen, "n_compared": 1, "comparisons": [],
-                "no_measurable_difference": []}
-    if len(results) == 1:
-        return {"how": "only", "chosen": chosen, "n_compared": 1, "comparisons": [],
-                "no_measurable_difference": []}
-    folds = {name: sorted(outer_scores[name], key=lambda r: r["fold"]) for name in results}
-    report = metrics.selection_report(
-        {name: [r["scores"]["balanced_accuracy"] for r in folds[name]] for name in results},
-        chosen=chosen,
-        n_train=sum(r["n_train"] for r in folds[chosen]) / len(folds[chosen]),
-        n_test=sum(r["n_test"] for r in folds[chosen]) / len(folds[chosen]))
-    return {"how": "best", **report}
 
 
 def statistics(spec, data, results, scores_by_purpose, layout):
@@ -339,17 +296,6 @@ def fit_releases(run, spec, data, results, stats=None):
             out.append(_release(run, spec, data, model, scores, rows=rows,
                                 kind="site_only", site=Site.objects.get(slug=slug)))
     return out
-
-
-def _evaluation(result):
-    """The stored summary of one model's validation: per fold, pooled, interval, chance and
-    per site."""
-    return {"per_fold": result["per_fold"],
-            "pooled": {k: result["pooled"][k] for k in ("accuracy", "balanced_accuracy",
-                                                        "macro_f1", "kappa")},
-            "ci": result["ci"], "chance": result["chance"],
-            "per_site": {s: {k: v[k] for k in ("accuracy", "balanced_accuracy", "n")}
-                         for s, v in result["per_site"].items()}}
 
 
 def subset(data, rows):
