@@ -77,8 +77,11 @@ def test_upload_validated_by_one_worker_is_checked_by_another(shared_store, star
 
     upload = submit_path(source, site=site, study=study, user=manager)
     first = start_worker(first_env, name="a")
-    wait_for(lambda: Upload.objects.get(pk=upload.pk).state in FINAL_UPLOAD_STATES,
-             300, "the first worker to validate the upload")
+    try:
+        wait_for(lambda: Upload.objects.get(pk=upload.pk).state in FINAL_UPLOAD_STATES,
+                 300, "the first worker to validate the upload")
+    except AssertionError as exc:
+        raise AssertionError(f"{exc}; the worker said:\n{first.output()[-4000:]}") from None
     first.stop()
     upload.refresh_from_db()
     assert upload.state == "accepted", (upload.errors, first.output()[-3000:])
