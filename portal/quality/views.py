@@ -10,7 +10,6 @@ from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, require
-from portal.audit import reproduce
 from portal.audit.events import record
 from portal.datasets.access import visible_version
 from portal.quality import plots
@@ -141,7 +140,7 @@ def recording_quality(request, round_id, recording_id):
         "round": qc_round, "recording": recording, "run": run, "channels": channels,
         "decided": decided, "form": form, "overrides": overrides,
         "history": list(recording_overrides(site, recording.sha256)),
-        **reproduce.page_context("qc", run, may_start=run is not None and may_override),
+        "may_reproduce": run is not None and may_override,
     })
 
 

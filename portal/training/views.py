@@ -171,7 +171,7 @@ def run_detail(request, training_id):
 
 def _rerun_check(run, state):
     """For a re-run that is done: its fingerprint against the original's."""
-    from portal.audit.reproduce import training_fingerprint
+    from portal.training.fingerprint import training_fingerprint
 
     original = run.rerun_of
     if original is None or state != "done" or original.state != "done":
