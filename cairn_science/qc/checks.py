@@ -42,43 +42,6 @@ WORDS = {
 }
 
 
-#: What each check measures, with its unit, and which side of its threshold is bad (the
-#: comparison the check makes below), in words for the quality pages; ``{t}`` is the
-#: threshold a channel was compared with.
-MEASURES = {
-    "dropout": ("share of time without signal (0–1)", "above {t} is bad"),
-    "deviation": ("amplitude against the other channels (robust z, in SDs)",
-                  "beyond ±{t} is bad"),
-    "amplitude_factor": ("broadband amplitude against the other channels (times)",
-                         "{t} times or more is bad"),
-    "amplitude_factor_low": ("broadband amplitude against the other channels (times)",
-                             "{t} times or less is bad"),
-    "high_frequency": ("high-frequency noise against the other channels (robust z, in SDs)",
-                       "above {t} is bad"),
-    "correlation": ("share of windows not following the other channels (0–1)",
-                    "above {t} is bad"),
-    "jumps": ("sudden jumps per minute", "above {t} per minute is bad"),
-    "mains": ("mains hum over the nearby frequencies (dB)", "{t} dB or more is bad"),
-    "bridging": ("difference from the closest neighbour (variance ratio, 0 = identical)",
-                 "below {t} is bad"),
-    "predictability": ("share of windows its neighbours do not predict (0–1)",
-                       "above {t} is bad"),
-}
-
-
-def measure_words(check: str, value: float | None = None,
-                  threshold: float | None = None) -> tuple[str, str]:
-    """(measurement with its unit, which side of ``threshold`` is bad) for a check; a
-    two-sided check's low side when ``value`` is below 1."""
-    key = check
-    if check == "amplitude_factor" and value is not None and value < 1.0:
-        key = "amplitude_factor_low"
-    name, bad = MEASURES.get(key, (check.replace("_", " "), ""))
-    if threshold is None or not bad:
-        return name, ""
-    return name, bad.format(t=f"{float(threshold):.3g}")
-
-
 @dataclass(frozen=True)
 class ChannelCheck:
     """Outcome of one check over all channels.

@@ -61,16 +61,6 @@ class FoldScore(models.Model):
 class ReleaseState(models.TextChoices):
     PENDING = "pending", "awaiting the study lead's approval"
     APPROVED = "approved", "approved for the sites"
-    WITHDRAWN = "withdrawn", "withdrawn by the study lead"
-
-
-#: ModelRelease.kind in words.
-RELEASE_KIND_WORDS = {"pooled": "pooled (every site)", "site_only": "this site only"}
-
-#: ModelRelease.scores["evaluation"]: whose evaluation the scores are, in words.
-EVALUATION_WORDS = {"pooled": "the pooled model's evaluation",
-                    "site_only": "its own evaluation on one site's participants",
-                    "none": "no evaluation of its own"}
 
 
 class ModelRelease(models.Model):
@@ -91,17 +81,11 @@ class ModelRelease(models.Model):
     bundle_sha256 = models.CharField(max_length=64)
     trusted_types = models.JSONField(default=list)
     scores = models.JSONField(default=dict)
-    state = models.CharField(max_length=9, choices=ReleaseState.choices,
+    state = models.CharField(max_length=8, choices=ReleaseState.choices,
                              default=ReleaseState.PENDING, db_index=True)
     approved_by = models.ForeignKey(django_settings.AUTH_USER_MODEL, null=True, blank=True,
                                     on_delete=models.SET_NULL, related_name="+")
     approved_at = models.DateTimeField(null=True, blank=True)
-    # An approved release taken back: its files are no longer given out (the rows and blobs
-    # stay, for the record), and the reason is shown wherever the release is listed.
-    withdrawn_by = models.ForeignKey(django_settings.AUTH_USER_MODEL, null=True, blank=True,
-                                     on_delete=models.SET_NULL, related_name="+")
-    withdrawn_at = models.DateTimeField(null=True, blank=True)
-    withdrawal_reason = models.TextField(blank=True)
     created_at = models.DateTimeField(default=timezone.now)
 
     class Meta:
@@ -109,7 +93,3 @@ class ModelRelease(models.Model):
 
     def __str__(self):
         return f"release {self.pk} ({self.model})"
-
-    @property
-    def withdrawn(self):
-        return self.state == ReleaseState.WITHDRAWN

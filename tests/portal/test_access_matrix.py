@@ -87,7 +87,6 @@ RULES = {
     "quality:recording": Rule(),
     "quality:override": Rule(need="run", method="post"),
     "quality:plot": Rule(),
-    "quality:signal": Rule(),
     "features:study": Rule(level="study"),
     "features:new": Rule(need="run", method="post", level="study"),
     "features:detail": Rule(),
