@@ -2,19 +2,15 @@
 once per (file, settings, code version) and stores the result."""
 
 import csv
-import tempfile
-from contextlib import contextmanager
-from pathlib import Path, PurePosixPath
+from pathlib import PurePosixPath
 
 from portal.audit.events import canonical_sha256, record
-from portal.datasets import blobs
 from portal.datasets.models import Recording
 from portal.jobs.services import enqueue
 from portal.quality.models import QCChannel, QCRound, QCRun
+from portal.quality.reading import materialised, recording_files  # noqa: F401 (shared)
 from portal.quality.sensors import sensor_positions
 from portal.quality.services import refresh_decided, runs_of
-
-DATA_SUFFIXES = {".edf", ".bdf", ".vhdr", ".vmrk", ".eeg", ".set", ".fdt"}
 
 
 def run_version(ctx):
@@ -31,24 +27,6 @@ def run_version(ctx):
                     study=qc_round.version.study, params={"round": qc_round.pk})
             queued += 1
         job.result = {"queued": queued, "reused": len(done)}
-
-
-def recording_files(recording):
-    """The version's files needed to read one recording with its sidecars (inheritance)."""
-    data = PurePosixPath(recording.path)
-    stem = data.name.rsplit("_", 1)[0]
-    ancestors = {str(p) for p in data.parents}
-    wanted = []
-    for item in recording.version.files.all():
-        path = PurePosixPath(item.path)
-        parent = str(path.parent)
-        if parent == str(data.parent):
-            if path.suffix.lower() in DATA_SUFFIXES and not path.name.startswith(stem + "_"):
-                continue
-            wanted.append(item)
-        elif parent in ancestors:
-            wanted.append(item)
-    return wanted
 
 
 def site_status(channels_tsv):
@@ -69,16 +47,6 @@ def electrode_positions(raw):
         return None
     positions = montage.get_positions()["ch_pos"]
     return {name: tuple(float(v) for v in xyz) for name, xyz in positions.items()} or None
-
-
-@contextmanager
-def materialised(recording):
-    """A temporary folder holding the recording's file and the sidecars it inherits."""
-    with tempfile.TemporaryDirectory(prefix="cairn-read-") as tmp:
-        root = Path(tmp)
-        for item in recording_files(recording):
-            blobs.copy_blob_to(item.sha256, root / item.path)
-        yield root
 
 
 def read_raw(root, recording):

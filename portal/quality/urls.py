@@ -13,5 +13,7 @@ urlpatterns = [
          name="recording"),
     path("rounds/<int:round_id>/recordings/<int:recording_id>/override/", views.override,
          name="override"),
+    path("rounds/<int:round_id>/recordings/<int:recording_id>/signal.png", views.signal_image,
+         name="signal"),
     path("plots/<int:run_id>/<slug:kind>.svg", views.plot, name="plot"),
 ]

@@ -5,14 +5,14 @@ import zipfile
 from pathlib import Path
 
 from django.contrib import messages
-from django.http import FileResponse, Http404, HttpResponse
+from django.http import FileResponse, Http404, HttpResponse, HttpResponseBadRequest
 from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, require
 from portal.audit.events import record
 from portal.datasets.access import visible_version
-from portal.quality import plots
+from portal.quality import plots, viewer
 from portal.quality.access import (
     may_decide_channels,
     recording_in_round,
@@ -141,7 +141,62 @@ def recording_quality(request, round_id, recording_id):
         "decided": decided, "form": form, "overrides": overrides,
         "history": list(recording_overrides(site, recording.sha256)),
         "may_reproduce": run is not None and may_override,
+        "signal": signal_context(request.GET, recording, channels),
     })
+
+
+def signal_context(query, recording, channels):
+    """The signal viewer's part of the page: its parameters (the defaults, with the message,
+    when the query's are out of range), links to the neighbouring pages, and the bad
+    channels it marks."""
+    error = ""
+    try:
+        params = viewer.parse_params(query, recording.duration_s)
+    except viewer.ViewError as exc:
+        error = str(exc)
+        params = viewer.parse_params({}, recording.duration_s)
+    return {"params": params, "error": error, "links": viewer.page_links(params,
+                                                                          recording.duration_s),
+            "query": params.query(), "spans": viewer.SPANS_S, "gains": viewer.GAINS_UV,
+            "filters": [(name, words) for name, (words, _, _) in viewer.FILTERS.items()],
+            "stop_s": min(params.start_s + params.span_s, recording.duration_s or float("inf")),
+            "bad": [name for name, c in channels.items() if c["status"] == "bad"]}
+
+
+@access("checked")
+def signal_image(request, round_id, recording_id):
+    """One page of the recording's traces as a PNG (see :mod:`portal.quality.viewer`); the
+    same access as the recording's quality page."""
+    from cairn_science.bids.report import RefusedFile
+    from portal.quality.reading import read_stored
+
+    qc_round, recording = recording_in_round(request.user, round_id, recording_id)
+    try:
+        params = viewer.parse_params(request.GET, recording.duration_s)
+    except viewer.ViewError as exc:
+        return HttpResponseBadRequest(str(exc), content_type="text/plain; charset=utf-8")
+    run = run_for(qc_round, recording)
+    channels = effective_channels(
+        run, latest_overrides(qc_round.version.site, recording.sha256)) if run else {}
+    segments = run.result.get("segments", []) if run else []
+
+    def render_page():
+        raw = read_stored(recording)
+        picks = [i for i, kind in enumerate(raw.get_channel_types()) if kind != "stim"]
+        display = viewer.build_display(raw.get_data(picks=picks), [raw.ch_names[i] for i in picks],
+                                       raw.info["sfreq"], params, channels=channels,
+                                       segments=segments)
+        return viewer.draw(display)
+
+    try:
+        png = viewer.cached_png(viewer.cache_key(recording.sha256, params, channels, segments),
+                                render_page)
+    except RefusedFile as exc:
+        return HttpResponse(f"{recording.path} could not be read: {exc}", status=422,
+                            content_type="text/plain; charset=utf-8")
+    response = HttpResponse(png, content_type="image/png")
+    response["Cache-Control"] = "private, max-age=3600"
+    return response
 
 
 def recording_overrides(site, sha256):

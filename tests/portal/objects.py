@@ -31,9 +31,12 @@ def fill(site, study, *, owner=None, label=None):
     sha256, size = blobs.put_stream(io.BytesIO(f"An invented dataset of {tag}.\n".encode()))
     item = VersionFile.objects.create(version=version, path="README", sha256=sha256, bytes=size)
     participant, _ = Participant.objects.get_or_create(site=site, label="01")
+    edf_path = "sub-01/eeg/sub-01_task-rest_eeg.edf"
+    edf_sha, edf_size = blobs.put_bytes(tiny_edf(tag))
+    VersionFile.objects.create(version=version, path=edf_path, sha256=edf_sha, bytes=edf_size)
     recording = Recording.objects.create(
-        version=version, participant=participant, path="sub-01/eeg/sub-01_task-rest_eeg.edf",
-        sha256=_sha("recording", tag), task="rest", sfreq_hz=250.0, n_channels=1,
+        version=version, participant=participant, path=edf_path,
+        sha256=edf_sha, task="rest", sfreq_hz=250.0, n_channels=1,
         channel_names=["Cz"], duration_s=60.0,
     )
     qc_round = QCRound.objects.create(version=version, settings_digest="2" * 64,
@@ -75,6 +78,21 @@ def fill(site, study, *, owner=None, label=None):
             "objects": {"upload": upload, "version": version, "recording": recording,
                         "qc": run, "features": feature_set, "training": training["run"],
                         "release": training["release"]}}
+
+
+def tiny_edf(tag, seconds=60, sfreq_hz=250):
+    """An EDF file of one channel (Cz) holding an invented 10 Hz wave for ``seconds``, its
+    header written by hand (EDF field widths from memory) and naming ``tag``, so that each
+    scope's recording is a file of its own that mne reads."""
+    import math
+    import struct
+
+    wave = [round(400 * math.sin(2 * math.pi * 10 * k / sfreq_hz)) for k in range(sfreq_hz)]
+    header = (f"{'0':<8}{'X X X X':<80}{('Startdate 01-JAN-2024 X X ' + tag)[:80]:<80}"
+              f"{'01.01.24':<8}{'09.00.00':<8}{512:<8}{'':<44}{seconds:<8}{1:<8}{1:<4}")
+    signal = (f"{'Cz':<16}{'AgAgCl electrode':<80}{'uV':<8}{-3200:<8}{3200:<8}{-32768:<8}"
+              f"{32767:<8}{'HP:0.1Hz LP:100Hz':<80}{sfreq_hz:<8}{'':<32}")
+    return (header + signal).encode("ascii") + struct.pack(f"<{sfreq_hz}h", *wave) * seconds
 
 
 def job_about(kind, target, *, site=None, study=None):

@@ -88,6 +88,7 @@ RULES = {
     "quality:override": Rule(need="run", method="post"),
     "quality:plot": Rule(),
     "features:study": Rule(level="study"),
+    "quality:signal": Rule(),
     "features:new": Rule(need="run", method="post", level="study"),
     "features:detail": Rule(),
     "features:status": Rule(),
