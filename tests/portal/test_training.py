@@ -65,6 +65,7 @@ def finished(spec, user=None):
     return TrainingRun.objects.get(pk=run.pk)
 
 
+@pytest.mark.venv  # predict_outside builds a new virtual environment and pip-installs into it
 def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     run = finished(spec_for(featured))
     assert run.state == "done", run.error
