@@ -2,11 +2,14 @@
 
 Members are streamed in 1 MiB chunks into a temporary folder beside the destination, which is
 renamed into place only once the whole archive has passed; a refused archive leaves nothing.
+Each file can be hashed as it is written (``extract_archive(..., digests=...)``), so a caller
+that needs the contents' sha256 does not read the files again.
 """
 
 from __future__ import annotations
 
 import gzip
+import hashlib
 import lzma
 import os
 import shutil
@@ -172,8 +175,9 @@ class _Names:
         return parts
 
 
-def _copy(label, name, stream, target, declared_bytes, meter):
-    """Stream one member to ``target``, counting real bytes so a lying header cannot hide."""
+def _copy(label, name, stream, target, declared_bytes, meter, digest=None):
+    """Stream one member to ``target``, counting real bytes so a lying header cannot hide;
+    ``digest`` (a hashlib object), if given, is fed every byte written."""
     written = 0
     with open(target, "xb") as sink:
         while True:
@@ -186,10 +190,36 @@ def _copy(label, name, stream, target, declared_bytes, meter):
                 raise _refuse(label, name, f"holds more data than the {declared_bytes:,} bytes "
                               "its header declares. " + _REMAKE)
             meter(name, len(chunk))
+            if digest is not None:
+                digest.update(chunk)
             sink.write(chunk)
     if written != declared_bytes:
         raise _refuse(label, name, f"holds {written:,} bytes but its header declares "
                       f"{declared_bytes:,} bytes. " + _REMAKE)
+
+
+def _copy_span(label, name, raw, offset, target, declared_bytes, meter, digest, buffer):
+    """Copy the ``declared_bytes`` of a plain tar member's data, which start at ``offset`` of
+    the archive file ``raw``, to ``target``: read straight from the file into ``buffer`` (a
+    reused bytearray) and written from there, one copy each way, instead of through tarfile's
+    stream and file objects. An archive that ends early is refused as tarfile refuses it."""
+    view = memoryview(buffer)
+    fd = raw.fileno()
+    written = 0
+    with open(target, "xb", buffering=0) as sink:
+        while written < declared_bytes:
+            with _reading(label, name):
+                got = os.preadv(fd, [view[:min(len(view), declared_bytes - written)]],
+                                offset + written)
+                if not got:
+                    raise tarfile.ReadError("unexpected end of data")
+            chunk = view[:got]
+            written += got
+            meter(name, got)
+            if digest is not None:
+                digest.update(chunk)
+            while chunk:
+                chunk = chunk[sink.write(chunk):]
 
 
 def _counter(label, packed_bytes, limits):
@@ -239,7 +269,7 @@ def _zip_is_dir(label, info):
     return False
 
 
-def _unpack_zip(archive, label, into, limits, packed_bytes):
+def _unpack_zip(archive, label, into, limits, packed_bytes, hashing):
     entries, directory_bytes = _zip_directory(archive, label)
     _check_count(label, None, entries, limits)
     if directory_bytes > MAX_ZIP_DIRECTORY_BYTES:
@@ -273,9 +303,10 @@ def _unpack_zip(archive, label, into, limits, packed_bytes):
             target.parent.mkdir(parents=True, exist_ok=True)
             with _reading(label, info.orig_filename):
                 stream = zf.open(info)
+            digest = hashlib.sha256() if hashing else None
             with stream:
-                _copy(label, info.orig_filename, stream, target, info.file_size, count)
-            yield parts
+                _copy(label, info.orig_filename, stream, target, info.file_size, count, digest)
+            yield parts, digest
 
 
 class _TarStream:
@@ -287,14 +318,32 @@ class _TarStream:
         self.header_bytes, self.in_member = 0, False
 
     def read(self, size=-1):
-        data = self.raw.read(size)
-        if not self.in_member:
+        if self.in_member:
+            return self.raw.read(size)
+        # Between members, read in pieces and count each, so a huge extended header is
+        # refused once past the limit instead of being read whole first.
+        pieces = []
+        while size < 0 or size > 0:
+            data = self.raw.read(CHUNK_BYTES if size < 0 else min(size, CHUNK_BYTES))
+            if not data:
+                break
             self.header_bytes += len(data)
             if self.header_bytes > MAX_TAR_HEADER_BYTES:
                 raise _refuse(self.label, None, f"holds more than {_mb(MAX_TAR_HEADER_BYTES)} of "
                               "tar headers for one entry (long names or extended headers), far "
                               "more than a dataset needs. " + _REMAKE)
-        return data
+            pieces.append(data)
+            if size > 0:
+                size -= len(data)
+        return pieces[0] if len(pieces) == 1 else b"".join(pieces)
+
+    # A plain tar is read in place (tarfile's random-access mode): headers through read(),
+    # member data straight from the file by offset.
+    def seek(self, offset, whence=os.SEEK_SET):
+        return self.raw.seek(offset, whence)
+
+    def tell(self):
+        return self.raw.tell()
 
     def data_starts(self):
         self.in_member = True
@@ -317,12 +366,16 @@ class _StrictTarInfo(tarfile.TarInfo):
             raise tarfile.ReadError(f"damaged or cut-off header: {exc}") from exc
 
 
-def _unpack_tar(archive, label, into, limits, packed_bytes, *, compressed):
+def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compressed):
+    """A .tar.gz is read as one stream; a plain .tar in place, its member data copied from
+    the file by offset. Either way each header is checked before its member is written."""
     with open(archive, "rb") as raw, \
             gzip.GzipFile(fileobj=raw, mode="rb") if compressed else nullcontext(raw) as source:
         stream = _TarStream(source, label)
         with _reading(label):
-            tar = tarfile.open(fileobj=stream, mode="r|", tarinfo=_StrictTarInfo)
+            tar = tarfile.open(fileobj=stream, mode="r|" if compressed else "r:",
+                               tarinfo=_StrictTarInfo)
+        buffer = None if compressed else bytearray(CHUNK_BYTES)
         with tar:
             names, entries, declared = _Names(label, limits), 0, 0
             count = _counter(label, packed_bytes, limits)
@@ -350,12 +403,17 @@ def _unpack_tar(archive, label, into, limits, packed_bytes, *, compressed):
                 declared += info.size
                 _check_size(label, info.name, declared, packed_bytes, limits, "declares")
                 target.parent.mkdir(parents=True, exist_ok=True)
+                digest = hashlib.sha256() if hashing else None
                 stream.data_starts()
-                with _reading(label, info.name):
-                    member = tar.extractfile(info)
-                _copy(label, info.name, member, target, info.size, count)
+                if compressed or info.sparse is not None:
+                    with _reading(label, info.name):
+                        member = tar.extractfile(info)
+                    _copy(label, info.name, member, target, info.size, count, digest)
+                else:
+                    _copy_span(label, info.name, raw, info.offset_data, target, info.size,
+                               count, digest, buffer)
                 stream.data_ends()
-                yield parts
+                yield parts, digest
         if compressed:
             with _reading(label):
                 while stream.read(CHUNK_BYTES):
@@ -387,12 +445,15 @@ def _wrapping_folder(unpacked):
 
 def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathLike, *,
                     limits: ExtractLimits = ExtractLimits(),
-                    label: str | None = None) -> list[Path]:
+                    label: str | None = None,
+                    digests: dict | None = None) -> list[Path]:
     """Unpack a .zip, .tar or .tar.gz (told apart by content) into ``destination``, which must
     be absent or an empty folder; returns the unpacked file paths.
 
     ``label`` names the archive in error messages (default: its file name). A single top folder
     holding dataset_description.json is unwrapped. On any error ``destination`` is left as it was.
+    With ``digests`` (a dict), each file's sha256 hex digest, computed from the bytes as they
+    were written, is stored in it under the file's POSIX path relative to ``destination``.
     """
     archive_path, destination = Path(archive_path), Path(destination)
     label = label or archive_path.name
@@ -405,11 +466,13 @@ def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathL
     staging = Path(tempfile.mkdtemp(prefix=f".{destination.name}.unpacking-",
                                     dir=destination.parent))
     try:
+        hashing = digests is not None
         if kind == "zip":
-            unpacked = list(_unpack_zip(archive_path, label, staging, limits, packed_bytes))
+            unpacked = list(_unpack_zip(archive_path, label, staging, limits, packed_bytes,
+                                        hashing))
         else:
             unpacked = list(_unpack_tar(archive_path, label, staging, limits, packed_bytes,
-                                        compressed=kind == "tar.gz"))
+                                        hashing, compressed=kind == "tar.gz"))
         top = _wrapping_folder(staging)
         os.replace(staging / top if top else staging, destination)
     except BaseException:
@@ -417,7 +480,10 @@ def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathL
         raise
     if top:
         staging.rmdir()
-    return [destination.joinpath(*(parts[1:] if top else parts)) for parts in unpacked]
+    if hashing:
+        for parts, digest in unpacked:
+            digests["/".join(parts[1:] if top else parts)] = digest.hexdigest()
+    return [destination.joinpath(*(parts[1:] if top else parts)) for parts, _ in unpacked]
 
 
 def _walk(folder, label, names, relative=""):

@@ -181,9 +181,12 @@ class LocalStore:
             raise
         return sha256, size
 
-    def adopt_file(self, path):
-        with open(path, "rb") as stream:
-            sha256, size = hash_stream(stream)
+    def adopt_file(self, path, sha256=None):
+        if sha256 is None:
+            with open(path, "rb") as stream:
+                sha256, size = hash_stream(stream)
+        else:
+            size = path.stat().st_size
         target = self.path(sha256)
         if target.exists():
             path.unlink()
@@ -193,7 +196,10 @@ class LocalStore:
             moved = _move(path, target)
         if not moved:  # another disk: copy instead
             with open(path, "rb") as stream:
-                self.put_stream(stream)
+                stored, _ = self.put_stream(stream)
+            if stored != sha256:
+                raise BlobIntegrityError(f"{path} reads as {stored}, not the {sha256} it was "
+                                         "adopted as (it changed after it was hashed)")
             path.unlink()
             return sha256, size
         target.chmod(0o444)
@@ -463,9 +469,12 @@ class S3Store:
                 self._delete(temporary)
         return sha256, size
 
-    def adopt_file(self, path):
-        with open(path, "rb") as stream:
-            sha256, size = hash_stream(stream)
+    def adopt_file(self, path, sha256=None):
+        if sha256 is None:
+            with open(path, "rb") as stream:
+                sha256, size = hash_stream(stream)
+        else:  # the upload below checks the bytes sent against it
+            size = path.stat().st_size
         if not self.exists(sha256):
             with _store_errors("writing a file into the blob store"), open(path, "rb") as stream:
                 self._upload(self.key(sha256), [], stream, expected=sha256)
@@ -647,11 +656,17 @@ def put_bytes(data):
     return put_stream(io.BytesIO(data))
 
 
-def adopt_file(path):
+def adopt_file(path, sha256=None):
     """Store a file that may be consumed (a freshly unpacked upload): in the local store it is
     moved, not copied, when it lies on the same disk; it is gone afterwards. Returns
-    (sha256, size)."""
-    return store().adopt_file(Path(path))
+    (sha256, size).
+
+    ``sha256``: the file's digest when the caller already has it (hashed as it was written,
+    e.g. by ``extract_archive(digests=...)``, and unchanged since), which saves reading the
+    file again. The local store then renames it unread; a copy to another disk or an upload to
+    the object store checks the bytes against it and stores nothing on a mismatch.
+    """
+    return store().adopt_file(Path(path), None if sha256 is None else check_sha256(sha256))
 
 
 def blob_exists(sha256):

@@ -5,6 +5,7 @@ blobs first (content-addressed, so a crash leaves only unreferenced blobs that t
 removes) and every database row of the new version is written in one transaction.
 """
 
+import os
 import shutil
 from pathlib import Path
 
@@ -69,6 +70,12 @@ def _known_recordings(site, study):
     return known
 
 
+def _identity(path):
+    """What tells that a file is untouched since it was hashed: same inode, size and mtime."""
+    info = os.stat(path)
+    return info.st_ino, info.st_size, info.st_mtime_ns
+
+
 def validate_upload(ctx):
     upload = Upload.objects.select_related("site", "study").get(pk=ctx.job.target_id)
     if upload.is_final:
@@ -114,12 +121,15 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
         tmp = Path(tmp)
         root = tmp / "dataset"
         incoming = tmp / "incoming"
+        hashed = {}  # relative path: sha256 computed as the file was unpacked
         with storage_errors("unpacking the upload in staging"):
             try:
-                extract_archive(archive, incoming, label=upload.label)
+                extract_archive(archive, incoming, label=upload.label, digests=hashed)
             except ArchiveError as exc:
                 return None, {}, [], {"errors": [_problem(upload.label, str(exc), "archive")],
                                       "warnings": []}
+            hashed = {relative: (sha256, _identity(incoming / relative))
+                      for relative, sha256 in hashed.items()}
             untouched = set()
             if upload.mode == UploadMode.ADDITION and parent is not None:
                 root.mkdir()
@@ -170,9 +180,15 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
             for relative in list_files(root):
                 originals[relative] = blobs.file_sha256(root / relative)
             scrubbed = scrub_dataset(root)
+            hashed = {}  # scrubbing rewrote files: hash them again
         files = {}
         for relative in list_files(root):
-            files[relative] = blobs.adopt_file(root / relative)
+            # A sent file still as it was unpacked is not read again for its hash; a file
+            # materialised from the parent version, or one that changed, is.
+            sha256, identity = hashed.get(relative, (None, None))
+            if sha256 is not None and identity != _identity(root / relative):
+                sha256 = None
+            files[relative] = blobs.adopt_file(root / relative, sha256)
     return files, originals, scrubbed, result
 
 

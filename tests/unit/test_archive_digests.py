@@ -1,0 +1,92 @@
+"""extract_archive(digests=...): each file's sha256, taken as it is written, equals hashlib's
+sha256 of the file on disk (hashlib is the reference), for every archive kind; and a plain tar,
+whose members are copied from the file by offset, is refused as strictly when it is cut short
+or carries an oversized extended header. Invented bytes only (plumbing)."""
+
+import gzip
+import hashlib
+import io
+import random
+import tarfile
+import zipfile
+
+import pytest
+
+from cairn_science.archive import ArchiveError, extract_archive, pack_folder
+
+MIB = 1024 * 1024
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory):
+    root = tmp_path_factory.mktemp("dataset")
+    rng = random.Random(5)
+    files = {
+        "dataset_description.json": b'{"Name": "Digests", "BIDSVersion": "1.9.0"}\n',
+        ".bidsignore": b"notes/\n",
+        "sub-01/eeg/sub-01_task-rest_eeg.eeg": rng.randbytes(2 * MIB + 513),
+        "sub-01/eeg/sub-01_task-rest_eeg.vhdr": rng.randbytes(512),
+        "sub-01/eeg/sub-01_task-rest_events.tsv": b"",
+        "notes/caf\u00e9.txt": rng.randbytes(511),
+    }
+    for name, data in files.items():
+        (root / name).parent.mkdir(parents=True, exist_ok=True)
+        (root / name).write_bytes(data)
+    return root
+
+
+def _expected(root):
+    return {p.relative_to(root).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in root.rglob("*") if p.is_file()}
+
+
+def _pack(folder, path, kind):
+    if kind == "zip":
+        with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as zf:
+            for file in sorted(p for p in folder.rglob("*") if p.is_file()):
+                zf.write(file, f"wrapped/{file.relative_to(folder).as_posix()}")
+        return path
+    buffer = io.BytesIO()
+    pack_folder(folder, buffer)
+    path.write_bytes(gzip.compress(buffer.getvalue()) if kind == "tar.gz"
+                     else buffer.getvalue())
+    return path
+
+
+@pytest.mark.parametrize("kind", ["tar", "tar.gz", "zip"])
+def test_digests_match_the_files_written(folder, tmp_path, kind):
+    archive = _pack(folder, tmp_path / f"upload.{kind}", kind)
+    digests = {}
+    written = extract_archive(archive, tmp_path / "out", digests=digests)
+    expected = _expected(tmp_path / "out")
+    assert digests == expected == _expected(folder)  # the zip's wrapping folder is unwrapped
+    assert sorted(p.relative_to(tmp_path / "out").as_posix() for p in written) == sorted(digests)
+
+
+def test_no_digests_unless_asked(folder, tmp_path):
+    archive = _pack(folder, tmp_path / "upload.tar", "tar")
+    assert len(extract_archive(archive, tmp_path / "out")) == len(_expected(folder))
+
+
+@pytest.mark.parametrize("keep", [0.3, 0.6, 0.9])
+def test_plain_tar_cut_inside_a_member_is_refused(folder, tmp_path, keep):
+    data = _pack(folder, tmp_path / "whole.tar", "tar").read_bytes()
+    with tarfile.open(tmp_path / "whole.tar") as tar:
+        big = next(m for m in tar.getmembers() if m.name.endswith(".eeg"))
+    cut = tmp_path / "cut.tar"
+    cut.write_bytes(data[:big.offset_data + int(big.size * keep)])
+    with pytest.raises(ArchiveError, match="sub-01_task-rest_eeg.eeg.*truncated"):
+        extract_archive(cut, tmp_path / "out", digests={})
+    assert not (tmp_path / "out").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cut.tar", "whole.tar"]
+
+
+def test_plain_tar_with_a_huge_extended_header_is_refused(tmp_path):
+    path = tmp_path / "pax.tar"
+    with tarfile.open(path, "w", format=tarfile.PAX_FORMAT) as tar:
+        info = tarfile.TarInfo("sub-01/eeg/notes.txt")
+        info.size, info.pax_headers = 1, {"comment": "c" * 2_000_000}
+        tar.addfile(info, io.BytesIO(b"x"))
+    with pytest.raises(ArchiveError, match="tar headers for one entry"):
+        extract_archive(path, tmp_path / "out")
+    assert not (tmp_path / "out").exists()
