@@ -78,9 +78,10 @@ def _manage(env, *args, timeout=600):
 def _logins(var):
     out = {}
     for line in (var / "demo" / "logins.txt").read_text().splitlines()[1:]:
-        username, password, role = line.split()[:3]
-        out[role if role != "data_manager" and role != "analyst" else username] = (
-            username, password)
+        username, password = line.split()[:2]
+        role = {"demo-operator": "operator", "demo-lead": "study_lead",
+                "demo-auditor": "auditor"}.get(username, username)
+        out[role] = (username, password)
     return out
 
 

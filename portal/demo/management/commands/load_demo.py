@@ -11,6 +11,7 @@ from portal.accounts.setup import add_member, add_site, add_study
 from portal.datasets.models import Upload
 from portal.datasets.services import submit_path
 from portal.demo.consortium import FEATURES_MARKER, STUDY_NAME, STUDY_SLUG, TRAINING_MARKER
+from portal.demo.logins import login_lines
 from portal.features.models import FeatureSet
 from portal.studies.models import current_protocol, save_protocol
 
@@ -65,7 +66,7 @@ class Command(BaseCommand):
         if not FeatureSet.objects.filter(study=study).exists():
             (Path(settings.VAR_DIR) / "demo" / FEATURES_MARKER).write_text(STUDY_SLUG)
             (Path(settings.VAR_DIR) / "demo" / TRAINING_MARKER).write_text(STUDY_SLUG)
-        self._print_logins(logins)
+        self._print_logins(logins, study.name)
 
     def _member(self, logins, username, role, site_slug):
         user, _ = add_member(username, role=role, site_slug=site_slug)
@@ -73,13 +74,11 @@ class Command(BaseCommand):
         user.set_password(password)
         user.save(update_fields=["password"])
         AccountFlags.require_new_password(user, required=False)  # demo log-ins stay as printed
-        logins.append((username, role, site_slug or "all sites", password))
+        logins.append((username, role, site_slug, password))
         return user
 
-    def _print_logins(self, logins):
-        lines = ["Demo log-ins (new passwords on every run; invented people, invented data):"]
-        lines += [f"  {u:<28} {p:<14} {r} at {s}" for u, r, s, p in logins]
-        text = "\n".join(lines)
+    def _print_logins(self, logins, study_name):
+        text = "\n".join(login_lines(logins, study_name))
         path = Path(settings.VAR_DIR) / "demo" / "logins.txt"
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text + "\n")
