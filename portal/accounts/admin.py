@@ -43,7 +43,8 @@ class MembershipAdmin(ReadOnlyAdmin):
 
 @admin.register(ApiToken)
 class ApiTokenAdmin(ReadOnlyAdmin):
-    list_display = ("name", "user", "lookup", "created_at", "last_used_at", "revoked_at")
+    list_display = ("name", "user", "lookup", "scope", "created_at", "expires_at", "last_used_at",
+                    "revoked_at")
     exclude = ("digest",)
 
 

@@ -36,5 +36,23 @@ class ThrottledLoginForm(AuthenticationForm):
 
 
 class TokenForm(forms.Form):
+    #: The longest life a token may be given, in days (about two years).
+    MAX_DAYS = 730
+
     name = forms.CharField(max_length=100, label="What is the token for?",
                            help_text="For example: lab server nightly upload.")
+    expires_in_days = forms.IntegerField(
+        required=False, min_value=1, max_value=MAX_DAYS, label="Expires after (days)",
+        help_text=f"1 to {MAX_DAYS}; leave empty for a token that lasts until you revoke it.")
+    read_only = forms.BooleanField(
+        required=False, label="Read only",
+        help_text="The token may list and download, never upload, confirm or start work.")
+
+    def expires_at(self):
+        """When the token expires (from now), or None."""
+        import datetime
+
+        from django.utils import timezone
+
+        days = self.cleaned_data.get("expires_in_days")
+        return timezone.now() + datetime.timedelta(days=days) if days else None

@@ -79,6 +79,11 @@ def hash_token(raw):
     return hashlib.sha256(raw.encode("utf-8")).hexdigest()
 
 
+class TokenScope(models.TextChoices):
+    READ_WRITE = "read_write", "read and write (the token's owner's roles)"
+    READ = "read", "read only (lists and downloads; every write is refused)"
+
+
 class ApiToken(models.Model):
     """A token for scripts and lab servers; only its sha256 is kept, the raw value shown once."""
 
@@ -93,6 +98,10 @@ class ApiToken(models.Model):
     created_at = models.DateTimeField(default=timezone.now)
     last_used_at = models.DateTimeField(null=True, blank=True)
     revoked_at = models.DateTimeField(null=True, blank=True)
+    expires_at = models.DateTimeField(
+        null=True, blank=True, help_text="After this moment the token is refused; blank: never.")
+    scope = models.CharField(max_length=10, choices=TokenScope.choices,
+                             default=TokenScope.READ_WRITE)
 
     class Meta:
         ordering = ["-created_at"]
@@ -100,28 +109,47 @@ class ApiToken(models.Model):
     def __str__(self):
         return f"{self.name} ({self.PREFIX}{self.lookup}…)"
 
+    @property
+    def read_only(self):
+        return self.scope == TokenScope.READ
+
+    def expired(self, now=None):
+        return self.expires_at is not None and self.expires_at <= (now or timezone.now())
+
     @classmethod
-    def issue(cls, user, name):
+    def issue(cls, user, name, *, read_only=False, expires_at=None):
         """Create a token; returns (token, raw value). The raw value is not kept anywhere."""
         lookup = secrets.token_hex(6)
         secret = secrets.token_urlsafe(32)
         raw = f"{cls.PREFIX}{lookup}_{secret}"
-        token = cls.objects.create(user=user, name=name, lookup=lookup, digest=hash_token(raw))
+        token = cls.objects.create(
+            user=user, name=name, lookup=lookup, digest=hash_token(raw), expires_at=expires_at,
+            scope=TokenScope.READ if read_only else TokenScope.READ_WRITE)
         return token, raw
+
+    @classmethod
+    def verify(cls, raw):
+        """(token, None) for a usable raw value; (None, "invalid") for an unknown, revoked or
+        wrong value or an inactive account; (token, "expired") past ``expires_at`` (the token
+        only says when it expired: it signs nobody in)."""
+        if not raw or not raw.startswith(cls.PREFIX):
+            return None, "invalid"
+        lookup = raw[len(cls.PREFIX):].split("_", 1)[0]
+        token = cls.objects.select_related("user").filter(lookup=lookup).first()
+        if token is None or token.revoked_at is not None or not token.user.is_active:
+            return None, "invalid"
+        if not secrets.compare_digest(token.digest, hash_token(raw)):
+            return None, "invalid"
+        if token.expired():
+            return token, "expired"
+        cls.objects.filter(pk=token.pk).update(last_used_at=timezone.now())
+        return token, None
 
     @classmethod
     def authenticate(cls, raw):
         """The active token for a raw value, or None."""
-        if not raw or not raw.startswith(cls.PREFIX):
-            return None
-        lookup = raw[len(cls.PREFIX):].split("_", 1)[0]
-        token = cls.objects.select_related("user").filter(lookup=lookup).first()
-        if token is None or token.revoked_at is not None or not token.user.is_active:
-            return None
-        if not secrets.compare_digest(token.digest, hash_token(raw)):
-            return None
-        cls.objects.filter(pk=token.pk).update(last_used_at=timezone.now())
-        return token
+        token, problem = cls.verify(raw)
+        return token if problem is None else None
 
 
 class LoginFailure(models.Model):

@@ -62,8 +62,14 @@ def tokens(request):
     new_raw = None
     form = TokenForm(request.POST or None)
     if request.method == "POST" and form.is_valid():
-        token, new_raw = ApiToken.issue(request.user, form.cleaned_data["name"])
-        record("token.created", actor=request.user, target=token, summary=f"API token {token}")
+        token, new_raw = ApiToken.issue(request.user, form.cleaned_data["name"],
+                                        read_only=form.cleaned_data["read_only"],
+                                        expires_at=form.expires_at())
+        expiry = token.expires_at.isoformat(timespec="seconds") if token.expires_at else None
+        record("token.created", actor=request.user, target=token,
+               summary=f"API token {token}, {token.get_scope_display()}, "
+                       f"expires {expiry or 'never'}",
+               params={"scope": token.scope, "expires_at": expiry})
         form = TokenForm()
     listed = ApiToken.objects.filter(user=request.user)
     return render(request, "accounts/tokens.html",

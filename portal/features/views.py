@@ -12,7 +12,15 @@ from portal.accounts.permissions import Action, access, can, get_visible_study, 
 from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features import plots
-from portal.features.access import may_download, may_run_on, may_see, set_sites, visible_set
+from portal.features.access import (
+    may_download,
+    may_run_on,
+    may_see,
+    set_sites,
+    summary_visible_sets,
+    visible_set,
+    visible_set_summary,
+)
 from portal.features.forms import FeatureSetForm
 from portal.features.services import (
     FeatureRequestError,
@@ -53,7 +61,8 @@ def study_sets(request, study_slug):
                          "status": status_of(feature_set)[0]})
     form, sites = request_form(request.user, study)
     return render(request, "features/study.html", {
-        "study": study, "rows": page, "form": form if sites else None})
+        "study": study, "rows": page, "form": form if sites else None,
+        "pooled": summary_visible_sets(request.user, study)})
 
 
 @access("checked")
@@ -224,3 +233,14 @@ def plot(request, set_id, plot):
     response = HttpResponse(svg, content_type="image/svg+xml")
     response["Cache-Control"] = "private, max-age=86400"
     return response
+
+
+@access("checked")
+def set_summary_view(request, set_id):
+    """A pooled feature set seen from one of its sites: which sites, counts per site, pooled
+    size and dates (portal.features.pooled); no rows, files or downloads."""
+    from portal.features.pooled import set_summary
+
+    feature_set, sites, mine = visible_set_summary(request.user, set_id)
+    return render(request, "features/summary.html", {
+        "summary": set_summary(feature_set, sites, mine), "study": feature_set.study})

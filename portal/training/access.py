@@ -55,3 +55,29 @@ def release_for_site(user, release_id, site):
 def run_job_visible(user, target_id):
     run = TrainingRun.objects.filter(pk=target_id).select_related("feature_set").first()
     return run is not None and may_see(user, run.feature_set)
+
+
+def summary_visible_runs(user, study):
+    """The training runs of ``study`` on feature sets that pool data of a site the user
+    sees with data of sites they do not (see
+    :func:`portal.features.access.summary_visible_sets`): summaries only.
+    [(run, its sites, the user's sites among them)]"""
+    from portal.features.access import summary_visible_sets
+
+    pooled = {fs.pk: (sites, mine) for fs, sites, mine in summary_visible_sets(user, study)}
+    runs = study.training_runs.filter(feature_set_id__in=list(pooled))[:200]
+    return [(run, *pooled[run.feature_set_id]) for run in runs]
+
+
+def visible_run_summary(user, run_id):
+    """(run, its sites, the user's sites among them) if the user sees at least one site of
+    the run's feature set in its study; 404 otherwise."""
+    from portal.features.access import summary_sites
+
+    run = get_object_or_404(TrainingRun.objects.select_related("study", "feature_set"),
+                            pk=run_id)
+    sites = set_sites(run.feature_set)
+    mine = summary_sites(user, run.feature_set, sites)
+    if not mine:
+        raise Http404("no such training run")
+    return run, sites, mine

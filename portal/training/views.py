@@ -58,8 +58,12 @@ def study_runs(request, study_slug):
         if may_see(request.user, run.feature_set):
             rows.append({"run": run, "status": status_of(run)[0]})
     form, sets = _form(request.user, study)
+    from portal.training.access import summary_visible_runs
+
     return render(request, "training/study.html", {"study": study, "rows": rows,
-                                                   "form": form if sets else None})
+                                                   "form": form if sets else None,
+                                                   "pooled": summary_visible_runs(
+                                                       request.user, study)})
 
 
 @access("checked")
@@ -294,3 +298,15 @@ def spec_diff(request, training_id):
     return render(request, "training/spec_diff.html", {
         "run": run, "other": other, "rows": rows,
         "same_data": run.feature_set_id == other.feature_set_id})
+
+
+@access("checked")
+def run_summary_view(request, training_id):
+    """A pooled run seen from one of its sites: which sites, counts per site, pooled scores
+    and dates (portal.features.pooled); nothing per recording, fold or file."""
+    from portal.features.pooled import run_summary
+    from portal.training.access import visible_run_summary
+
+    run, sites, mine = visible_run_summary(request.user, training_id)
+    return render(request, "training/summary.html", {"summary": run_summary(run, sites, mine),
+                                                     "study": run.study})
