@@ -3,11 +3,31 @@
 import json
 
 from django.http import JsonResponse
-from django.views.decorators.http import require_http_methods
+from django.urls import reverse
+from django.views.decorators.http import require_GET, require_http_methods
 
-from portal.accounts.permissions import access, get_visible_site, uploads_anywhere
-from portal.datasets.access import may_upload, upload_studies, visible_upload
-from portal.datasets.models import UploadState
+from portal.accounts.permissions import access, get_visible_site, pairs_q, uploads_anywhere
+from portal.api_lists import answers_bad_query, filtered, page, when
+from portal.api_spec import (
+    BOOLEAN,
+    DATETIME,
+    INTEGER,
+    RESEARCH_USE,
+    STRING,
+    array,
+    nullable,
+    obj,
+    with_notice,
+)
+from portal.datasets.access import (
+    may_download_version,
+    may_upload,
+    upload_studies,
+    version_visible,
+    visible_upload,
+    visible_version,
+)
+from portal.datasets.models import DatasetVersion, UploadState
 from portal.datasets.services import (
     UploadError,
     cancel_held,
@@ -18,7 +38,7 @@ from portal.datasets.services import (
     start_chunked,
     write_chunk,
 )
-from portal.datasets.views import upload_job
+from portal.datasets.views import download_version, upload_job
 
 
 def _error(exc, status=400):
@@ -173,3 +193,70 @@ def confirm_upload(request, upload_id):
     except UploadError as exc:
         return _error(exc, status=409 if exc.field == "state" else 400)
     return JsonResponse(upload_json(upload), status=202 if upload.allow_removals else 200)
+
+
+# --- reading: dataset versions for scripts -----------------------------------------------------
+
+VERSION_SCHEMA = obj({
+    "id": INTEGER, "study": STRING, "site": STRING, "number": INTEGER,
+    "parent": nullable(INTEGER), "upload": INTEGER, "manifest_sha256": STRING,
+    "n_files": INTEGER, "total_bytes": INTEGER, "created_at": DATETIME,
+    "download": STRING,
+})
+VERSION_DETAIL_SCHEMA = obj({
+    **VERSION_SCHEMA["properties"],
+    "manifest": obj({"n_files": INTEGER, "total_bytes": INTEGER, "sha256": STRING,
+                     "n_recordings": INTEGER, "n_participants": INTEGER,
+                     "tasks": array(STRING), "changes": {"type": "object",
+                                                         "additionalProperties": INTEGER}}),
+    "quality_rounds": array(INTEGER), "may_download": BOOLEAN, "research_use": STRING,
+})
+
+
+def version_json(version):
+    return {"id": version.pk, "study": version.study.slug, "site": version.site.slug,
+            "number": version.number, "parent": version.parent_id, "upload": version.upload_id,
+            "manifest_sha256": version.manifest_sha256, "n_files": version.n_files,
+            "total_bytes": version.total_bytes, "created_at": when(version.created_at),
+            "download": reverse("api:version_download", args=[version.pk])}
+
+
+@access("checked")
+@require_GET
+@answers_bad_query
+def versions(request):
+    """Dataset versions of the (site, study) pairs the token sees, newest first."""
+    rows = filtered(request, DatasetVersion.objects.filter(pairs_q(request.user))
+                    .select_related("site", "study"),
+                    {"study": "study__slug", "site": "site__slug", "created": "created_at"})
+    return JsonResponse(page(request, "versions", rows, version_json,
+                             visible=lambda v: version_visible(request.user, v)))
+
+
+@access("checked")
+@require_GET
+def version(request, version_id):
+    """One version with a summary of its manifest."""
+    version = visible_version(request.user, version_id)
+    recordings = version.recordings.all()
+    changes = {key: len(value) for key, value in (version.diff or {}).items()
+               if isinstance(value, list | dict)}
+    return JsonResponse({
+        **version_json(version),
+        "manifest": {
+            "n_files": version.n_files, "total_bytes": version.total_bytes,
+            "sha256": version.manifest_sha256, "n_recordings": recordings.count(),
+            "n_participants": recordings.values("participant").distinct().count(),
+            "tasks": sorted(set(recordings.values_list("task", flat=True))),
+            "changes": changes},
+        "quality_rounds": list(version.qc_rounds.order_by("-pk").values_list("pk", flat=True)),
+        "may_download": may_download_version(request.user, version),
+        "research_use": RESEARCH_USE,
+    })
+
+
+@access("checked")
+@require_GET
+def version_download(request, version_id):
+    """The whole version as a zip: the web download itself (same rules, same audit event)."""
+    return with_notice(download_version(request, version_id))

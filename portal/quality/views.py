@@ -252,7 +252,8 @@ def download_derivative(request, round_id):
                 if path.is_file():
                     archive.write(path, f"{folder}/{path.relative_to(root).as_posix()}")
     spool.seek(0)
-    record("download", actor=request.user, site=version.site, study=version.study,
-           target=qc_round, summary=f"downloaded the quality derivative of {version}")
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=version.site, study=version.study, target=qc_round,
+           summary=f"downloaded the quality derivative of {version}")
     return FileResponse(spool, as_attachment=True, filename=f"{folder}.zip")
 

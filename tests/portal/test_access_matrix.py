@@ -126,6 +126,25 @@ RULES = {
     "api:training_run": Rule(),
 }
 
+    "api:openapi": Rule(level="public"),
+    "api:studies": Rule(level="list"),
+    "api:sites": Rule(level="list"),
+    "api:versions": Rule(level="list"),
+    "api:version": Rule(),
+    "api:version_download": Rule(need="download"),
+    "api:quality_rounds": Rule(level="list"),
+    "api:quality_round": Rule(),
+    "api:quality_results": Rule(),
+    "api:quality_derivative": Rule(need="download"),
+    "api:quality_result": Rule(),
+    "api:feature_sets": Rule(level="list"),
+    "api:feature_set": Rule(),
+    "api:feature_set_download": Rule(need="download"),
+    "api:training_runs": Rule(level="list"),
+    "api:training_run_detail": Rule(),
+    "api:releases": Rule(level="list"),
+    "api:release": Rule(),
+    "api:release_download": Rule(need="download"),
 #: Kinds the lineage and "made from this" pages take, each tried in every scope.
 LINEAGE_KINDS = ("training", "release", "features", "version")
 DERIVED_KINDS = ("upload", "version", "recording", "qc", "features", "training")
