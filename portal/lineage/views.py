@@ -42,14 +42,34 @@ def lineage_rows(doc):
     return rows
 
 
+SITE_ROWS_PER_PAGE = 100
+
+
 @access("checked")
 def lineage_page(request, lineage_kind, object_id):
+    """The steps shared by every site, then one summary line per site (versions, counts,
+    quality settings); ``?site=SLUG`` lists that site's records, a page at a time."""
+    from django.core.paginator import Paginator
+
+    from portal.lineage.summary import per_site
+
     kind = lineage_kind
     obj, full_sites = lineage_object(request.user, kind, object_id)
-    rows = lineage_rows(build(obj, full_sites).doc)
-    return render(request, "lineage/lineage.html", {
-        "obj": obj, "kind": kind, "rows": rows, "object_id": object_id,
-        "partial": full_sites is not None})
+    doc = build(obj, full_sites).doc
+    site_of, sites = per_site(doc)
+    rows = lineage_rows(doc)
+    chosen = request.GET.get("site")
+    context = {"obj": obj, "kind": kind, "object_id": object_id, "sites": sites,
+               "partial": full_sites is not None}
+    if chosen is None:
+        context["rows"] = [r for r in rows if r["id"] not in site_of]
+    else:
+        if chosen not in {s["slug"] for s in sites}:
+            raise Http404("no such site in this lineage")
+        context["site"] = next(s for s in sites if s["slug"] == chosen)
+        context["page"] = Paginator([r for r in rows if site_of.get(r["id"]) == chosen],
+                                    SITE_ROWS_PER_PAGE).get_page(request.GET.get("page"))
+    return render(request, "lineage/lineage.html", context)
 
 
 @access("checked")

@@ -31,6 +31,10 @@ PINNED = {
     "training run": 9,
     "site releases": 8,
     "audit trail": 8,
+    # the PROV document is built once: a query or two per dataset version (its files, its
+    # parent, counts of a summarised one), one for the set's items with their quality
+    # results, none per file or recording; the page then shows one line per site
+    "lineage": 33,
 }
 
 
@@ -51,6 +55,7 @@ def pages(study):
         "training run": reverse("training:detail", args=[run.pk]),
         "site releases": reverse("training:releases", args=[site.slug]),
         "audit trail": reverse("audit:events"),
+        "lineage": reverse("lineage:page", args=["training", run.pk]),
     }
 
 
