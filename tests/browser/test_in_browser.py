@@ -267,6 +267,42 @@ def test_study_lead_reads_the_overview_and_a_recordings_checks(browser, portal):
     page.context.close()
 
 
+def test_site_analyst_scrolls_a_recordings_signal_and_changes_its_gain(browser, portal):
+    """The signal viewer: the next page and a larger gain replace the viewer in place (no
+    reload) and each draws a new image."""
+    page = sign_in(browser, portal, analyst(portal))
+    page.goto(f"/sites/{portal['sites'][0]}/")
+    link = page.locator("a[href*='/quality/rounds/'][href*='/recordings/']")
+    wait_for(page, lambda: link.count() > 0, timeout_s=SETTLE_S,
+             what="a checked recording on the site's page")
+    link.first.click()
+    page.wait_for_url("**/recordings/*/")
+    wait_for(page, lambda: page.locator("#signal-image").count() == 1, timeout_s=SETTLE_S,
+             what="the recording's checks")
+    image = page.locator("#signal-image")
+
+    def loaded():
+        return page.eval_on_selector("#signal-image", "e => e.complete && e.naturalWidth")
+
+    wait_for(page, loaded, timeout_s=60, what="the first page of traces", reload=False)
+    first = image.get_attribute("src")
+    assert "start=0&span=10" in first
+    page.evaluate("window.cairnNoReload = true")
+    page.get_by_role("link", name="next 10 s →").click()
+    page.wait_for_function("document.querySelector('#signal-image').src.includes('start=10')")
+    wait_for(page, loaded, timeout_s=60, what="the second page of traces", reload=False)
+    page.locator("#signal select[name=gain]").select_option("200")
+    page.get_by_role("button", name="Show").click()
+    page.wait_for_function("document.querySelector('#signal-image').src.includes('gain=200')")
+    wait_for(page, loaded, timeout_s=60, what="the traces at 200 µV per division",
+             reload=False)
+    assert page.evaluate("window.cairnNoReload === true")
+    assert "start=10" in image.get_attribute("src") and "start=10" in page.url
+    shoot(page, "signal-viewer")
+    no_serious_findings(page, "a recording's quality page with its signal viewer")
+    page.context.close()
+
+
 def test_analyst_trains_a_model_and_downloads_the_release(browser, portal):
     site = portal["sites"][0]
     page = sign_in(browser, portal, analyst(portal))
