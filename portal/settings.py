@@ -147,6 +147,15 @@ LANGUAGE_CODE = "en-gb"
 TIME_ZONE = os.environ.get("CAIRN_TIME_ZONE", "UTC")
 USE_I18N = True
 USE_TZ = True
+# One way of writing dates on pages ("4 Dec 2026, 13:05"); portal/formats/ says why twice.
+FORMAT_MODULE_PATH = ["portal.formats"]
+from portal.formats import (  # noqa: E402, F401  (the same formats for any other language)
+    DATE_FORMAT,
+    DATETIME_FORMAT,
+    SHORT_DATE_FORMAT,
+    SHORT_DATETIME_FORMAT,
+    TIME_FORMAT,
+)
 
 STATIC_URL = "static/"
 STATIC_ROOT = Path(os.environ.get("CAIRN_STATIC_ROOT", VAR_DIR / "static"))

@@ -24,8 +24,14 @@ from cairn_science.params import (
 from .learners import LEARNERS, param_problems
 from .validation import Scheme
 
-LABEL_KINDS = ("level", "condition")
-NORMALISATIONS = ("none", "baseline", "mean")
+#: What a run predicts, with the words a page shows for it.
+LABEL_KIND_WORDS = {"level": "workload level (from the ratings)",
+                    "condition": "condition (e.g. rest against task)"}
+LABEL_KINDS = tuple(LABEL_KIND_WORDS)
+#: Participant normalisations, with the words a page shows for each.
+NORMALISATION_WORDS = {"none": "none", "baseline": "by each person's resting windows",
+                       "mean": "by each person's own windows"}
+NORMALISATIONS = tuple(NORMALISATION_WORDS)
 ENSEMBLES = ("bagging", "stacking")
 SAMPLE_BY = ("participant", "window")
 VOTING = ("soft", "hard")

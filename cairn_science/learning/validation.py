@@ -36,14 +36,17 @@ import numpy as np
 
 from cairn_science.params import Integral, Interval, Options, Real, raise_for, validate
 
-#: Every scheme with the few words a form shows for it (its label).
-SCHEME_LABELS = {
+#: Every scheme in the words a page shows for it (a run known to measure known people only
+#: carries its own warning beside them).
+SCHEME_WORDS = {
     "leave_one_participant_out": "leave one participant out",
     "grouped_kfold": "k folds grouped by participant",
     "leave_one_site_out": "leave one site out",
-    "within_participant_time": "within participant, later windows held out (known people "
-                               "only)",
+    "within_participant_time": "within participant, later windows held out",
 }
+#: Every scheme with the few words a form shows for it (its label).
+SCHEME_LABELS = {**SCHEME_WORDS, "within_participant_time":
+                 SCHEME_WORDS["within_participant_time"] + " (known people only)"}
 SCHEMES = tuple(SCHEME_LABELS)
 
 _WITHIN_WARNING = (

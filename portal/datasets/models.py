@@ -20,6 +20,10 @@ class UploadState(models.TextChoices):
     FAILED = "failed", "failed"
 
 
+#: Upload.source in words.
+UPLOAD_SOURCE_WORDS = {"web": "the web form", "api": "the API", "command": "a server command"}
+
+
 #: States an upload never leaves.
 FINAL_UPLOAD_STATES = (UploadState.ACCEPTED, UploadState.REJECTED, UploadState.FAILED)
 

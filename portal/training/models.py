@@ -63,6 +63,15 @@ class ReleaseState(models.TextChoices):
     APPROVED = "approved", "approved for the sites"
 
 
+#: ModelRelease.kind in words.
+RELEASE_KIND_WORDS = {"pooled": "pooled (every site)", "site_only": "this site only"}
+
+#: ModelRelease.scores["evaluation"]: whose evaluation the scores are, in words.
+EVALUATION_WORDS = {"pooled": "the pooled model's evaluation",
+                    "site_only": "its own evaluation on one site's participants",
+                    "none": "no evaluation of its own"}
+
+
 class ModelRelease(models.Model):
     """A final model fitted on all included data, saved with skops, with its model card, the
     feature specification needed to compute its inputs, and one archive of them all with the
