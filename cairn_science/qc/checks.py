@@ -42,6 +42,71 @@ WORDS = {
 }
 
 
+#: What each check measures, with its unit, and which side of its threshold is bad (the
+#: comparison the check makes below), in words for the quality pages; ``{t}`` is the
+#: threshold a channel was compared with.
+MEASURES = {
+    "dropout": ("share of time without signal (0–1)", "above {t} is bad"),
+    "deviation": ("amplitude against the other channels (robust z, in SDs)",
+                  "beyond ±{t} is bad"),
+    "amplitude_factor": ("broadband amplitude against the other channels (times)",
+                         "{t} times or more is bad"),
+    "amplitude_factor_low": ("broadband amplitude against the other channels (times)",
+                             "{t} times or less is bad"),
+    "high_frequency": ("high-frequency noise against the other channels (robust z, in SDs)",
+                       "above {t} is bad"),
+    "correlation": ("share of windows not following the other channels (0–1)",
+                    "above {t} is bad"),
+    "jumps": ("sudden jumps per minute", "above {t} per minute is bad"),
+    "mains": ("mains hum over the nearby frequencies (dB)", "{t} dB or more is bad"),
+    "bridging": ("difference from the closest neighbour (variance ratio, 0 = identical)",
+                 "below {t} is bad"),
+    "predictability": ("share of windows its neighbours do not predict (0–1)",
+                       "above {t} is bad"),
+}
+
+
+#: The QCSettings field holding each check's threshold (as cairn_science/qc/run.py passes it).
+THRESHOLD_FIELDS = {
+    "dropout": "dropout_share_max", "deviation": "deviation_z_max",
+    "amplitude_factor": "deviation_factor_max", "high_frequency": "hf_z_max",
+    "correlation": "correlation_bad_window_share", "jumps": "jump_rate_max_per_min",
+    "mains": "mains_ratio_max_db", "bridging": "bridge_variance_ratio_max",
+    "predictability": "predict_bad_window_share",
+}
+
+
+def measure_legend(settings: dict) -> list[tuple[str, str]]:
+    """(measurement with its unit, when it is bad) for every check under ``settings`` (a
+    QCSettings as a dict), for a page's key to the measurements."""
+    out = []
+    for check, name in THRESHOLD_FIELDS.items():
+        if name not in settings:
+            continue
+        threshold = float(settings[name])
+        measured, bad = measure_words(check, None, threshold)
+        if check == "amplitude_factor":
+            bad = f"{threshold:.3g} times or more, or 1/{threshold:.3g} or less, is bad"
+        elif check == "mains" and "mains_excess_db" in settings:
+            bad = (f"{float(settings['mains_excess_db']):.3g} dB over the median channel, or "
+                   f"{threshold:.3g} dB if that is lower, or more is bad")
+        out.append((measured, bad))
+    return out
+
+
+def measure_words(check: str, value: float | None = None,
+                  threshold: float | None = None) -> tuple[str, str]:
+    """(measurement with its unit, which side of ``threshold`` is bad) for a check; a
+    two-sided check's low side when ``value`` is below 1."""
+    key = check
+    if check == "amplitude_factor" and value is not None and value < 1.0:
+        key = "amplitude_factor_low"
+    name, bad = MEASURES.get(key, (check.replace("_", " "), ""))
+    if threshold is None or not bad:
+        return name, ""
+    return name, bad.format(t=f"{float(threshold):.3g}")
+
+
 @dataclass(frozen=True)
 class ChannelCheck:
     """Outcome of one check over all channels.

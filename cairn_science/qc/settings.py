@@ -205,3 +205,22 @@ class QCSettings:
 
 QCSettings._parameter_constraints = {
     item.name: _constraint(item.name) for item in dataclasses.fields(QCSettings)}
+
+
+#: Unit endings of QCSettings field names and how a page writes them.
+_UNIT_ENDINGS = (("_per_min", "per minute"), ("_uv", "µV"), ("_hz", "Hz"), ("_db", "dB"),
+                 ("_s", "s"))
+
+
+def setting_words(name: str) -> str:
+    """A QCSettings field name in words with its unit: ``min_duration_s`` -> "min duration
+    (s)", ``bad_channel_share_review`` -> "bad channel share review (0–1)"."""
+    unit = ""
+    for ending, words in _UNIT_ENDINGS:
+        if name.endswith(ending):
+            name, unit = name[: -len(ending)], words
+            break
+    if not unit and ("share" in name.split("_")):
+        unit = "0–1"
+    text = name.replace("_", " ")
+    return f"{text} ({unit})" if unit else text

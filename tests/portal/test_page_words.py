@@ -128,6 +128,13 @@ def test_pages_write_dates_one_way_and_show_no_raw_codes(client, bulk):
         for badge in badges[name]:
             assert badge.strip() not in codes, f"{name}: a badge shows the code {badge!r}"
     assert dated >= len(texts) // 2, "the pages should show dates; the check saw too few"
+    # the quality page names each measurement with its unit and the side that is bad
+    # (cairn_science.qc.checks.MEASURES; the round's thresholds)
+    quality = texts["recording quality (lead)"]
+    assert "What each measurement is and when it counts as bad" in quality
+    assert re.search(r"share of time without signal \(0–1\)\s+above 0\.01 is bad", quality)
+    assert re.search(r"difference from the closest neighbour [^\n]*\s+below 0\.01 is bad",
+                     quality)
 
 
 def test_the_date_check_would_see_the_other_formats():
