@@ -82,6 +82,26 @@ def _label_values(table, spec):
     return values
 
 
+def scale_order(classes: set, frame: pd.DataFrame, spec: TrainingSpec) -> list[str]:
+    """The classes in the rating scale's order, never alphabetical: workload levels by the
+    lowest rating among their windows (a scale's levels are disjoint ranges of ratings, so
+    this is the protocol's order whatever the levels are called), then low, moderate, high
+    for levels without ratings; conditions and mapped labels by name."""
+    import pandas as pd
+
+    lowest = {}
+    if spec.label["kind"] == "level" and not spec.label.get("map") and "rating" in frame:
+        ratings = pd.to_numeric(frame["rating"], errors="coerce")
+        lowest = ratings.groupby(frame["level"].astype(str)).min().dropna().to_dict()
+
+    def key(value):
+        if value in lowest:
+            return (0, float(lowest[value]), value)
+        return (1, LEVEL_ORDER.index(value) if value in LEVEL_ORDER else 9, value)
+
+    return sorted(classes, key=key)
+
+
 def _natural(value):
     """Sort key of a BIDS label in natural order ("2" before "10"); empty or missing first."""
     import pandas as pd
@@ -139,8 +159,7 @@ def prepare_data(table: pd.DataFrame, spec: TrainingSpec, *,
                           rest=(frame["condition"].astype(object) == "rest").to_numpy())
     labelled_frame = frame[labelled]
     y = y[labelled].astype(str)
-    present = sorted(set(y.tolist()), key=lambda v: (LEVEL_ORDER.index(v)
-                                                     if v in LEVEL_ORDER else 9, v))
+    present = scale_order(set(y.tolist()), labelled_frame, spec)
     if len(present) < 2:
         raise DataError(f"only {len(present)} class ({', '.join(present) or 'none'}) left "
                         "after the inclusion rules; a classifier needs at least 2")
