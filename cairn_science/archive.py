@@ -8,6 +8,7 @@ that needs the contents' sha256 does not read the files again.
 
 from __future__ import annotations
 
+import errno
 import gzip
 import hashlib
 import lzma
@@ -222,6 +223,40 @@ def _copy_span(label, name, raw, offset, target, declared_bytes, meter, digest, 
                 chunk = chunk[sink.write(chunk):]
 
 
+def _hash_span(label, name, raw, offset, declared_bytes, meter, buffer):
+    """The sha256 of a plain tar member's data, read from the file as _copy_span reads it
+    (counted by ``meter``; an archive that ends early is refused the same way)."""
+    view = memoryview(buffer)
+    fd = raw.fileno()
+    digest = hashlib.sha256()
+    done = 0
+    while done < declared_bytes:
+        with _reading(label, name):
+            got = os.preadv(fd, [view[:min(len(view), declared_bytes - done)]], offset + done)
+            if not got:
+                raise tarfile.ReadError("unexpected end of data")
+        done += got
+        meter(name, got)
+        digest.update(view[:got])
+    return digest
+
+
+def _link_or_copy(label, name, raw, offset, target, declared_bytes, same, buffer):
+    """``target`` as a hard link to ``same`` (a file already unpacked with the same content),
+    or, where the disk cannot link it, as a copy."""
+    if same is not None:
+        try:
+            os.link(same, target)
+            return
+        except FileExistsError:
+            raise
+        except OSError as exc:
+            if exc.errno not in (errno.EMLINK, errno.EPERM, errno.ENOTSUP, errno.EXDEV):
+                raise
+    _copy_span(label, name, raw, offset, target, declared_bytes, lambda *_: None, None,
+               buffer)
+
+
 def _counter(label, packed_bytes, limits):
     """A callable that adds unpacked bytes as they stream and refuses past the limits."""
     total = 0
@@ -366,9 +401,12 @@ class _StrictTarInfo(tarfile.TarInfo):
             raise tarfile.ReadError(f"damaged or cut-off header: {exc}") from exc
 
 
-def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compressed):
+def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compressed,
+                link_duplicates=False):
     """A .tar.gz is read as one stream; a plain .tar in place, its member data copied from
-    the file by offset. Either way each header is checked before its member is written."""
+    the file by offset. Either way each header is checked before its member is written.
+    With ``link_duplicates`` a plain tar's member is hashed before it is written, and one
+    whose content an earlier member had becomes a hard link to that file."""
     with open(archive, "rb") as raw, \
             gzip.GzipFile(fileobj=raw, mode="rb") if compressed else nullcontext(raw) as source:
         stream = _TarStream(source, label)
@@ -376,6 +414,7 @@ def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compress
             tar = tarfile.open(fileobj=stream, mode="r|" if compressed else "r:",
                                tarinfo=_StrictTarInfo)
         buffer = None if compressed else bytearray(CHUNK_BYTES)
+        written = {}  # sha256 of each file written: its path (with link_duplicates)
         with tar:
             names, entries, declared = _Names(label, limits), 0, 0
             count = _counter(label, packed_bytes, limits)
@@ -409,6 +448,13 @@ def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compress
                     with _reading(label, info.name):
                         member = tar.extractfile(info)
                     _copy(label, info.name, member, target, info.size, count, digest)
+                elif link_duplicates:
+                    digest = _hash_span(label, info.name, raw, info.offset_data, info.size,
+                                        count, buffer)
+                    key = (digest.digest(), info.size)
+                    _link_or_copy(label, info.name, raw, info.offset_data, target, info.size,
+                                  written.get(key), buffer)
+                    written.setdefault(key, target)
                 else:
                     _copy_span(label, info.name, raw, info.offset_data, target, info.size,
                                count, digest, buffer)
@@ -446,7 +492,8 @@ def _wrapping_folder(unpacked):
 def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathLike, *,
                     limits: ExtractLimits = ExtractLimits(),
                     label: str | None = None,
-                    digests: dict | None = None) -> list[Path]:
+                    digests: dict | None = None,
+                    link_duplicates: bool = False) -> list[Path]:
     """Unpack a .zip, .tar or .tar.gz (told apart by content) into ``destination``, which must
     be absent or an empty folder; returns the unpacked file paths.
 
@@ -454,6 +501,11 @@ def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathL
     holding dataset_description.json is unwrapped. On any error ``destination`` is left as it was.
     With ``digests`` (a dict), each file's sha256 hex digest, computed from the bytes as they
     were written, is stored in it under the file's POSIX path relative to ``destination``.
+    With ``link_duplicates``, a file of a plain .tar whose content equals an earlier file's is
+    made a hard link to it instead of being written again (the archive's bytes are hashed
+    before they are written, so this costs a second read of each file from the archive). Only
+    for callers that never write into the unpacked files: a change to one changes all its
+    links.
     """
     archive_path, destination = Path(archive_path), Path(destination)
     label = label or archive_path.name
@@ -472,7 +524,8 @@ def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathL
                                         hashing))
         else:
             unpacked = list(_unpack_tar(archive_path, label, staging, limits, packed_bytes,
-                                        hashing, compressed=kind == "tar.gz"))
+                                        hashing, compressed=kind == "tar.gz",
+                                        link_duplicates=link_duplicates))
         top = _wrapping_folder(staging)
         os.replace(staging / top if top else staging, destination)
     except BaseException:

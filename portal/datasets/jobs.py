@@ -122,9 +122,13 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
         root = tmp / "dataset"
         incoming = tmp / "incoming"
         hashed = {}  # relative path: sha256 computed as the file was unpacked
+        # Files with the same content are unpacked as hard links to one file, unless
+        # scrubbing will rewrite files in place.
+        scrub = protocol.get("deidentification") == "scrub"
         with storage_errors("unpacking the upload in staging"):
             try:
-                extract_archive(archive, incoming, label=upload.label, digests=hashed)
+                extract_archive(archive, incoming, label=upload.label, digests=hashed,
+                                link_duplicates=not scrub)
             except ArchiveError as exc:
                 return None, {}, [], {"errors": [_problem(upload.label, str(exc), "archive")],
                                       "warnings": []}
@@ -174,7 +178,7 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
                 return None, {}, [], dict(result, removals=removals)
         originals = {}
         scrubbed = []
-        if protocol.get("deidentification") == "scrub":
+        if scrub:
             from cairn_science.bids.deid import scrub_dataset
 
             for relative in list_files(root):

@@ -40,10 +40,14 @@ def materialised(recording):
         yield root
 
 
-def read_stored(recording):
-    """The recording as an mne Raw with its data loaded, read from the blob store as the
-    quality job reads it; :class:`cairn_science.bids.report.RefusedFile` when refused."""
+def read_stored(recording, take=None):
+    """The recording read from the blob store as the quality job reads it: the mne Raw with
+    its data loaded, or, with ``take``, what ``take(raw)`` returns of the Raw opened without
+    loading (called while the files exist, so it may read just the samples it needs);
+    :class:`cairn_science.bids.report.RefusedFile` when refused."""
     from cairn_science.bids.recording import read_recording
 
     with materialised(recording) as root:
-        return read_recording(root, recording.path)
+        if take is None:
+            return read_recording(root, recording.path)
+        return take(read_recording(root, recording.path, preload=False))

@@ -131,29 +131,44 @@ class Display:
         return [t["name"] for t in self.traces if t["status"] == "bad"]
 
 
-def build_display(data_v, ch_names, sfreq_hz, params, *, channels=None, segments=()):
-    """What one page shows, from the whole recording ``data_v`` (channels × samples, in
-    volts as mne gives them): the page [start, start + span) cut out, the display filter
-    applied (with :data:`FILTER_PAD_S` of signal on each side, then cut away), then
-    decimated by :func:`decimation_step` with scipy's anti-alias filter
+def page_samples(params, sfreq_hz, n_times):
+    """(first, last, lo, hi): the page's samples [first, last) of a recording of ``n_times``
+    samples, and the samples [lo, hi) to read for it (the page, with :data:`FILTER_PAD_S` of
+    signal on each side when a display filter is asked for)."""
+    first = min(int(round(params.start_s * sfreq_hz)), max(n_times - 1, 0))
+    last = min(n_times, first + int(round(params.span_s * sfreq_hz)))
+    if FILTERS[params.filter][1:] == (None, None):
+        return first, last, first, last
+    pad = int(round(FILTER_PAD_S * sfreq_hz))
+    return first, last, max(0, first - pad), min(n_times, last + pad)
+
+
+def build_display(data_v, ch_names, sfreq_hz, params, *, channels=None, segments=(),
+                  offset=0, n_times=None):
+    """What one page shows, from ``data_v`` (channels × samples, in volts as mne gives them)
+    holding the recording's samples from ``offset`` on (all of a recording of ``n_times``
+    samples, or at least [lo, hi) of :func:`page_samples`): the page [start, start + span)
+    cut out, the display filter applied (on the padded samples, the padding then cut away),
+    then decimated by :func:`decimation_step` with scipy's anti-alias filter
     (``scipy.signal.decimate``, its default order-8 Chebyshev type I, forwards and backwards).
     ``channels``: {name: {"status", "by"}} (the effective verdict); ``segments``: the rejected
     segments (onset_s, duration_s, reasons) of the quality result."""
     from scipy.signal import decimate
 
     channels = channels or {}
-    n_times = data_v.shape[1]
-    first = min(int(round(params.start_s * sfreq_hz)), max(n_times - 1, 0))
-    last = min(n_times, first + int(round(params.span_s * sfreq_hz)))
+    n_times = offset + data_v.shape[1] if n_times is None else n_times
+    first, last, lo, hi = page_samples(params, sfreq_hz, n_times)
+    if lo < offset or hi > offset + data_v.shape[1]:
+        raise ValueError(f"samples {lo}-{hi} are needed, {offset}-"
+                         f"{offset + data_v.shape[1]} were given")
     words, l_freq, h_freq = FILTERS[params.filter]
     if l_freq is None and h_freq is None:
-        page = data_v[:, first:last]
+        page = data_v[:, first - offset:last - offset]
     else:
         import mne
 
-        pad = int(round(FILTER_PAD_S * sfreq_hz))
-        lo, hi = max(0, first - pad), min(n_times, last + pad)
-        filtered = mne.filter.filter_data(np.asarray(data_v[:, lo:hi], dtype=float), sfreq_hz,
+        filtered = mne.filter.filter_data(np.asarray(data_v[:, lo - offset:hi - offset],
+                                                     dtype=float), sfreq_hz,
                                           l_freq, h_freq, verbose="ERROR")
         page = filtered[:, first - lo:last - lo]
     page = np.asarray(page, dtype=float) * 1e6  # µV

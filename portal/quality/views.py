@@ -180,13 +180,18 @@ def signal_image(request, round_id, recording_id):
         run, latest_overrides(qc_round.version.site, recording.sha256)) if run else {}
     segments = run.result.get("segments", []) if run else []
 
-    def render_page():
-        raw = read_stored(recording)
+    def take(raw):
+        """Only the page's samples (and a filter's padding) are read from the file."""
         picks = [i for i, kind in enumerate(raw.get_channel_types()) if kind != "stim"]
-        display = viewer.build_display(raw.get_data(picks=picks), [raw.ch_names[i] for i in picks],
-                                       raw.info["sfreq"], params, channels=channels,
-                                       segments=segments)
-        return viewer.draw(display)
+        sfreq = raw.info["sfreq"]
+        _, _, lo, hi = viewer.page_samples(params, sfreq, raw.n_times)
+        return viewer.build_display(raw.get_data(picks=picks, start=lo, stop=hi),
+                                    [raw.ch_names[i] for i in picks], sfreq, params,
+                                    channels=channels, segments=segments, offset=lo,
+                                    n_times=raw.n_times)
+
+    def render_page():
+        return viewer.draw(read_stored(recording, take))
 
     try:
         png = viewer.cached_png(viewer.cache_key(recording.sha256, params, channels, segments),

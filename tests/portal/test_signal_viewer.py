@@ -36,6 +36,8 @@ def test_the_image_follows_the_quality_page_access(client, filled):
     assert response.status_code == 200
     assert response["Content-Type"] == "image/png"
     assert response.content.startswith(b"\x89PNG\r\n\x1a\n")
+    filtered = client.get(_url(filled["own"], "start=55&span=10&filter=bp1-40"))  # padded read
+    assert filtered.status_code == 200 and filtered.content != response.content
     for scope in ("other-site", "other-study"):
         assert client.get(_url(filled[scope])).status_code == 404, scope
         assert client.get(_url(filled[scope], name="quality:recording")).status_code == 404
@@ -134,6 +136,14 @@ def test_the_thinned_trace_is_scipys_decimate_of_what_mne_reads(pyedflib_bids):
     assert got.shape == expected.shape == (11, 2000)
     np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-9)
     assert display.times_s[1] - display.times_s[0] == pytest.approx(0.03)
+    # reading only the page's samples (as the view does) draws the same traces
+    _, _, lo, hi = viewer.page_samples(params, 200.0, raw.n_times)
+    part = viewer.build_display(raw.get_data(start=lo, stop=hi), raw.ch_names, 200.0, params,
+                                offset=lo, n_times=raw.n_times)
+    np.testing.assert_array_equal(np.array([t["values_uv"] for t in part.traces]), got)
+    with pytest.raises(ValueError, match="samples 20000-32000 are needed"):
+        viewer.build_display(raw.get_data(start=lo + 1, stop=hi), raw.ch_names, 200.0, params,
+                             offset=lo + 1, n_times=raw.n_times)
     # a 10 s page at 200 Hz is 2000 samples: shown as recorded, nothing thinned
     short = viewer.build_display(raw.get_data(), raw.ch_names, 200.0,
                                  viewer.parse_params({"start": "5"}, 600.0))

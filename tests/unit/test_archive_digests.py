@@ -12,7 +12,7 @@ import zipfile
 
 import pytest
 
-from cairn_science.archive import ArchiveError, extract_archive, pack_folder
+from cairn_science.archive import ArchiveError, ExtractLimits, extract_archive, pack_folder
 
 MIB = 1024 * 1024
 
@@ -89,4 +89,44 @@ def test_plain_tar_with_a_huge_extended_header_is_refused(tmp_path):
         tar.addfile(info, io.BytesIO(b"x"))
     with pytest.raises(ArchiveError, match="tar headers for one entry"):
         extract_archive(path, tmp_path / "out")
+    assert not (tmp_path / "out").exists()
+
+
+def _with_copies(folder, tmp_path):
+    """The dataset plus two more files holding the same bytes as its .eeg."""
+    copy = tmp_path / "with-copies"
+    copy.mkdir()
+    for file in (p for p in folder.rglob("*") if p.is_file()):
+        (copy / file.relative_to(folder)).parent.mkdir(parents=True, exist_ok=True)
+        (copy / file.relative_to(folder)).write_bytes(file.read_bytes())
+    data = (folder / "sub-01/eeg/sub-01_task-rest_eeg.eeg").read_bytes()
+    for name in ("sub-02/eeg/sub-02_task-rest_eeg.eeg", "sub-03/eeg/sub-03_task-rest_eeg.eeg"):
+        (copy / name).parent.mkdir(parents=True)
+        (copy / name).write_bytes(data)
+    return copy
+
+
+@pytest.mark.parametrize("link", [False, True])
+def test_identical_files_are_linked_only_when_asked(folder, tmp_path, link):
+    source = _with_copies(folder, tmp_path)
+    archive = _pack(source, tmp_path / "upload.tar", "tar")
+    digests = {}
+    extract_archive(archive, tmp_path / "out", digests=digests, link_duplicates=link)
+    out = tmp_path / "out"
+    assert digests == _expected(out) == _expected(source)
+    inodes = {(out / f"sub-0{k}/eeg/sub-0{k}_task-rest_eeg.eeg").stat().st_ino
+              for k in (1, 2, 3)}
+    assert len(inodes) == (1 if link else 3)
+    others = [p.stat().st_ino for p in out.rglob("*") if p.is_file() and p.suffix != ".eeg"]
+    assert len(set(others)) == len(others)  # different contents are never linked
+
+
+def test_linking_keeps_the_limits(folder, tmp_path):
+    """Linked copies still count toward the unpacked size, as if written."""
+    source = _with_copies(folder, tmp_path)
+    archive = _pack(source, tmp_path / "upload.tar", "tar")
+    total = sum(p.stat().st_size for p in source.rglob("*") if p.is_file())
+    with pytest.raises(ArchiveError, match="more than the limit"):
+        extract_archive(archive, tmp_path / "out", link_duplicates=True,
+                        limits=ExtractLimits(max_total_bytes=total - 1))
     assert not (tmp_path / "out").exists()
