@@ -1,6 +1,6 @@
 """Lists for the read API: one opaque cursor, one limit, the same filters everywhere.
 
-A list answers ``{"results": [...], "next": URL or null, "limit": N}``, newest first (by id,
+A list answers ``{"results": [...], "next": path or null, "limit": N}``, newest first (by id,
 which only grows). ``next`` carries an opaque, signed cursor naming the list and the last id
 shown, so a page never repeats or skips an object that existed when the first page was read,
 whatever is added meanwhile. A cursor from another list, an edited one or a limit outside
@@ -171,7 +171,8 @@ def page(request, list_name, queryset, item, *, visible=None):
     if more:
         query = {k: v for k, v in request.GET.items() if k != "cursor"}
         query["cursor"] = make_cursor(list_name, shown[-1].pk)
-        next_url = request.build_absolute_uri(request.path) + "?" + urlencode(query)
+        # a path on the same server, like every link the API gives (right behind a proxy too)
+        next_url = request.path + "?" + urlencode(query)
     return {"results": [item(obj) for obj in shown], "next": next_url, "limit": limit}
 
 

@@ -65,7 +65,8 @@ def obj(properties, *, optional=(), extra=False):
 
 
 def page_of(item):
-    return obj({"results": array(item), "next": nullable({"type": "string", "format": "uri"}),
+    return obj({"results": array(item),
+                "next": nullable({"type": "string", "format": "uri-reference"}),
                 "limit": {"type": "integer", "minimum": 1}})
 
 
@@ -218,7 +219,9 @@ def build_openapi(endpoints):
                                 "for fitness-for-duty decisions; data use needs your ethics "
                                 "approval and data-protection law. Errors share one JSON "
                                 "shape: `error` (what went wrong and what to do), `field`, "
-                                "`status`, `code`."},
+                                "`status`, `code`. Lists are newest first; follow `next` "
+                                "(an opaque cursor) until it is null. Links in answers are "
+                                "paths on this server."},
         "paths": paths,
         "components": {
             "schemas": {"Error": ERROR_SCHEMA},

@@ -169,6 +169,7 @@ def test_cursor_pages_are_stable_and_complete(client, world):
     assert seen == before and pages == 4  # 7 versions, 2 a page, newest first, none twice
     first = get(client, "versions", auth, query="?limit=3").json()
     assert len(first["results"]) == 3 and first["limit"] == 3
+    assert first["next"].startswith("/api/v1/versions/?")  # a path on the same server
     assert "cursor=" in first["next"] and "limit=3" in first["next"]
 
 
