@@ -4,6 +4,7 @@ pagination (fast at any depth: each page is an index range on (time, id)), CSV e
 import csv
 import datetime
 import io
+import json
 from urllib.parse import urlencode
 
 from django.db.models import Q
@@ -11,20 +12,38 @@ from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import render
 from django.utils.dateparse import parse_date
 
-from portal.accounts.permissions import access
+from portal.accounts.permissions import access, visible_sites
 from portal.audit.access import visible_events
 from portal.audit.chain import read_anchors
+from portal.audit.kinds import JOBS, KINDS, RESEARCH, kind_of, kinds_q
+from portal.audit.links import object_links
 from portal.audit.models import ChainLink, Event
 from portal.spreadsheet import safe_row
 
 PAGE = 50
-FILTERS = ("verb", "site", "actor", "object", "from", "to")
+FILTERS = ("kind", "jobs", "verb", "site", "actor", "object", "from", "to")
 
 
 def filtered(request):
     """The reader's events narrowed by the query's filters, newest first; (queryset, dict)."""
     chosen = {key: request.GET.get(key, "").strip() for key in FILTERS}
+    if chosen["kind"] not in KINDS and chosen["kind"] != "all":
+        chosen["kind"] = ""
+    chosen["jobs"] = "1" if chosen["jobs"] else ""
     events = visible_events(request.user)
+    # By default the research kinds (portal/audit/kinds.py); "kind" names one kind or "all"
+    # (verbs of no known family included); "jobs" adds job bookkeeping to either; a verb
+    # prefix searches every kind.
+    if chosen["verb"]:
+        pass
+    elif chosen["kind"] == "all":
+        if not chosen["jobs"]:
+            events = events.exclude(kinds_q([JOBS]))
+    else:
+        kinds = [chosen["kind"]] if chosen["kind"] else list(RESEARCH)
+        if chosen["jobs"] and JOBS not in kinds:
+            kinds.append(JOBS)
+        events = events.filter(kinds_q(kinds))
     if chosen["verb"]:
         events = events.filter(verb__startswith=chosen["verb"])
     if chosen["site"]:
@@ -63,6 +82,43 @@ def _after(events, cursor):
     return events.filter(Q(at__lt=at) | Q(at=at, id__lt=ident))
 
 
+def _json(value):
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
+
+
+def _items(values):
+    """An event's inputs or outputs as lines of "key value" pairs (hashes in full)."""
+    lines = []
+    for item in values or []:
+        if isinstance(item, dict):
+            lines.append(" · ".join(f"{k} {v}" for k, v in sorted(item.items())))
+        else:
+            lines.append(str(item))
+    return lines
+
+
+def _code(event):
+    version = event.code_version or {}
+    return version.get("commit", ""), version.get("modified")
+
+
+def annotate(events, user):
+    """Give each event what its row shows: kind, link to its object (or None), inputs,
+    outputs, parameters and code version."""
+    links = object_links(user, events)
+    for event in events:
+        event.kind_label = KINDS.get(kind_of(event.verb), ("",))[0]
+        event.object_url = links.get((event.target_type, event.target_id))
+        event.input_lines = _items(event.inputs)
+        event.output_lines = _items(event.outputs)
+        event.params_text = json.dumps(event.params, sort_keys=True, indent=1,
+                                       ensure_ascii=False) if event.params else ""
+        event.commit, event.modified = _code(event)
+        event.libraries = ", ".join(f"{k} {v}" for k, v in sorted(
+            (event.code_version or {}).get("libraries", {}).items()) if v)
+    return events
+
+
 @access("checked")
 def event_list(request):
     events, chosen = filtered(request)
@@ -71,36 +127,48 @@ def event_list(request):
         events = _after(events, cursor)
     rows = list(events.select_related("site", "study")[:PAGE + 1])
     more = len(rows) > PAGE
-    rows = rows[:PAGE]
+    rows = annotate(rows[:PAGE], request.user)
     query = urlencode({k: v for k, v in chosen.items() if v})
     return render(request, "audit/events.html", {
         "events": rows, "chosen": chosen, "query": query,
+        "kinds": [(key, label) for key, (label, _) in KINDS.items() if key != JOBS],
+        "research": [KINDS[k][0] for k in RESEARCH],
+        "sites": list(visible_sites(request.user).order_by("slug").values_list("slug", "name")),
         "next": _cursor(rows[-1]) if more and rows else None, "first_page": not cursor,
         "chain": chain_state()})
 
 
+#: The CSV's columns; inputs, outputs, params and code_versions are JSON (sorted keys).
+CSV_COLUMNS = ["id", "at_utc", "kind", "verb", "actor", "actor_kind", "site", "study",
+               "object", "summary", "inputs", "outputs", "params", "code_commit",
+               "code_modified", "code_versions", "link_seq", "link_hash"]
+
+
 @access("checked")
 def export_csv(request):
-    """The filtered view as CSV, streamed in index order."""
+    """The filtered view as CSV, streamed in index order, every cell made inert for
+    spreadsheets (portal/spreadsheet.py)."""
     events, _ = filtered(request)
 
     def lines():
         buffer = io.StringIO()
         writer = csv.writer(buffer)
-        writer.writerow(["id", "at_utc", "verb", "actor", "actor_kind", "site", "study",
-                         "object", "summary", "link_seq", "link_hash"])
+        writer.writerow(CSV_COLUMNS)
         yield buffer.getvalue()
         for event in events.select_related("site", "study", "link").iterator(chunk_size=2000):
             buffer.seek(0)
             buffer.truncate()
             link = getattr(event, "link", None)
-            writer.writerow(safe_row([event.pk, event.at.astimezone(datetime.UTC).isoformat(),
-                             event.verb, event.actor_snapshot.get("username", ""),
-                             event.actor_kind, event.site.slug if event.site else "",
-                             event.study.slug if event.study else "",
-                             f"{event.target_type}:{event.target_id}" if event.target_type
-                             else "", event.summary, link.seq if link else "",
-                             link.hash if link else ""]))
+            commit, modified = _code(event)
+            writer.writerow(safe_row([
+                event.pk, event.at.astimezone(datetime.UTC).isoformat(), kind_of(event.verb),
+                event.verb, event.actor_snapshot.get("username", ""), event.actor_kind,
+                event.site.slug if event.site else "", event.study.slug if event.study else "",
+                f"{event.target_type}:{event.target_id}" if event.target_type else "",
+                event.summary, _json(event.inputs), _json(event.outputs), _json(event.params),
+                commit, "" if modified is None else str(modified).lower(),
+                _json(event.code_version), link.seq if link else "",
+                link.hash if link else ""]))
             yield buffer.getvalue()
 
     response = StreamingHttpResponse(lines(), content_type="text/csv")

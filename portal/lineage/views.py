@@ -18,6 +18,7 @@ from portal.lineage.access import lineage_object, reproduction_subject_visible
 from portal.lineage.derived import derived, root_object
 from portal.lineage.prov import build, provenance_json
 from portal.quality.models import QCRun
+from portal.training.access import refuse_withdrawn
 
 PARAMETER_KEYS = ("cairn:params", "cairn:spec", "cairn:settings")
 
@@ -76,6 +77,10 @@ def lineage_page(request, lineage_kind, object_id):
 def lineage_prov(request, lineage_kind, object_id):
     kind = lineage_kind
     obj, full_sites = lineage_object(request.user, kind, object_id)
+    if kind == "release":  # a withdrawn release's files, its PROV record included, are refused
+        refused = refuse_withdrawn(request, obj, f"{kind}-{object_id}.prov.json")
+        if refused is not None:
+            return refused
     response = HttpResponse(provenance_json(obj, full_sites), content_type="application/json")
     response["Content-Disposition"] = f'attachment; filename="{kind}-{object_id}.prov.json"'
     return response

@@ -7,7 +7,7 @@ trained on.
 """
 
 from django.http import Http404
-from django.shortcuts import get_object_or_404
+from django.shortcuts import get_object_or_404, render
 
 from portal.accounts.permissions import Action, can, is_lead, visible_sites
 from portal.features.access import may_see, set_sites
@@ -30,7 +30,8 @@ def site_may_use(user, release, site, sites=None, action=Action.VIEW):
         return False
     if release.trained_on_site_id is not None and release.trained_on_site_id != site.pk:
         return False
-    if release.state != ReleaseState.APPROVED and not is_lead(user, study):
+    # a pending release is the study lead's; a withdrawn one stays listed (files refused)
+    if release.state == ReleaseState.PENDING and not is_lead(user, study):
         return False
     sites = set_sites(release.run.feature_set) if sites is None else sites
     return site in sites
@@ -55,6 +56,15 @@ def release_for_site(user, release_id, site):
 def run_job_visible(user, target_id):
     run = TrainingRun.objects.filter(pk=target_id).select_related("feature_set").first()
     return run is not None and may_see(user, run.feature_set)
+
+
+def refuse_withdrawn(request, release, what):
+    """The answer to a request for a file of a withdrawn release (410 Gone, saying when, by
+    whom and why), or None if the release is not withdrawn. Every release file view asks."""
+    if release.state != ReleaseState.WITHDRAWN:
+        return None
+    return render(request, "training/withdrawn.html", {"release": release, "what": what},
+                  status=410)
 
 
 def summary_visible_runs(user, study):

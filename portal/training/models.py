@@ -61,6 +61,7 @@ class FoldScore(models.Model):
 class ReleaseState(models.TextChoices):
     PENDING = "pending", "awaiting the study lead's approval"
     APPROVED = "approved", "approved for the sites"
+    WITHDRAWN = "withdrawn", "withdrawn by the study lead"
 
 
 #: ModelRelease.kind in words.
@@ -90,11 +91,17 @@ class ModelRelease(models.Model):
     bundle_sha256 = models.CharField(max_length=64)
     trusted_types = models.JSONField(default=list)
     scores = models.JSONField(default=dict)
-    state = models.CharField(max_length=8, choices=ReleaseState.choices,
+    state = models.CharField(max_length=9, choices=ReleaseState.choices,
                              default=ReleaseState.PENDING, db_index=True)
     approved_by = models.ForeignKey(django_settings.AUTH_USER_MODEL, null=True, blank=True,
                                     on_delete=models.SET_NULL, related_name="+")
     approved_at = models.DateTimeField(null=True, blank=True)
+    # An approved release taken back: its files are no longer given out (the rows and blobs
+    # stay, for the record), and the reason is shown wherever the release is listed.
+    withdrawn_by = models.ForeignKey(django_settings.AUTH_USER_MODEL, null=True, blank=True,
+                                     on_delete=models.SET_NULL, related_name="+")
+    withdrawn_at = models.DateTimeField(null=True, blank=True)
+    withdrawal_reason = models.TextField(blank=True)
     created_at = models.DateTimeField(default=timezone.now)
 
     class Meta:

@@ -90,9 +90,42 @@ def approve(release, *, user):
         if updated:
             record("release.approved", actor=user, target=release, study=release.run.study,
                    summary=f"release {release.pk} ({release.model}) approved for the sites",
+                   params={"model_card_confirmed": True},
                    inputs=[{"release": release.pk, "model_sha256": release.model_sha256,
-                            "model_digest": release.model_digest}])
+                            "model_digest": release.model_digest,
+                            "card_sha256": release.card_sha256}])
     return bool(updated)
+
+
+class WithdrawalError(ValueError):
+    """A withdrawal that cannot be made (no reason, or a release not approved)."""
+
+
+REASON_MAX = 2000
+
+
+def withdraw(release, *, user, reason):
+    """Take an approved release back: its files are refused from now on, with ``reason``
+    shown to whoever asks for them. Returns the release as stored."""
+    reason = (reason or "").strip()
+    if not reason:
+        raise WithdrawalError("give the reason for the withdrawal: the sites will read it")
+    if len(reason) > REASON_MAX:
+        raise WithdrawalError(f"keep the reason under {REASON_MAX} characters")
+    with transaction.atomic():
+        updated = ModelRelease.objects.filter(pk=release.pk, state=ReleaseState.APPROVED).update(
+            state=ReleaseState.WITHDRAWN, withdrawn_by=user, withdrawn_at=timezone.now(),
+            withdrawal_reason=reason)
+        if not updated:
+            raise WithdrawalError(f"release {release.pk} is not approved, so it cannot be "
+                                  "withdrawn")
+        record("release.withdrawn", actor=user, target=release, study=release.run.study,
+               summary=f"release {release.pk} ({release.model}) withdrawn: {reason}"[:300],
+               params={"reason": reason},
+               inputs=[{"release": release.pk, "model_sha256": release.model_sha256,
+                        "bundle_sha256": release.bundle_sha256}])
+    release.refresh_from_db()
+    return release
 
 
 def jobs_of(run):

@@ -14,6 +14,7 @@ urlpatterns = [
     path("<int:training_id>/scores.svg", views.plot, name="plot"),
     path("<int:training_id>/summary/", views.run_summary_view, name="summary"),
     path("releases/<int:release_id>/approve/", views.approve_view, name="approve"),
+    path("releases/<int:release_id>/withdraw/", views.withdraw_view, name="withdraw"),
     path("sites/<slug:site_slug>/releases/", views.site_releases, name="releases"),
     path("sites/<slug:site_slug>/releases/<int:release_id>/<slug:part>", views.release_file,
          name="release_file"),

@@ -9,7 +9,7 @@ from django.core.exceptions import PermissionDenied
 from django.http import FileResponse, Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
-from django.views.decorators.http import require_POST
+from django.views.decorators.http import require_http_methods, require_POST
 
 from portal.accounts.permissions import (
     Action,
@@ -24,16 +24,23 @@ from portal.datasets import blobs
 from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
 from portal.training import plots
-from portal.training.access import release_for_site, site_may_use, visible_run
+from portal.training.access import (
+    refuse_withdrawn,
+    release_for_site,
+    site_may_use,
+    visible_run,
+)
 from portal.training.forms import TrainingForm
-from portal.training.models import ModelRelease
+from portal.training.models import ModelRelease, ReleaseState
 from portal.training.services import (
     TrainingRequestError,
+    WithdrawalError,
     approve,
     progress_of,
     rerun,
     start_run,
     status_of,
+    withdraw,
 )
 
 #: part -> (file name after "release-N", content type, field holding the blob's sha256);
@@ -155,7 +162,8 @@ def run_detail(request, training_id):
     best = run.results.get("release_model")
     best_result = run.results.get("models", {}).get(best) if best else None
     lead = is_lead(request.user, run.study)
-    releases = list(run.releases.select_related("trained_on_site", "approved_by"))
+    releases = list(run.releases.select_related("trained_on_site", "approved_by",
+                                                 "withdrawn_by"))
     return render(request, "training/detail.html", {
         **status,
         "run": run, "sites": sites, "rows": rows, "best": best, "best_result": best_result,
@@ -233,19 +241,62 @@ def plot(request, training_id):
     return response
 
 
-@access("checked")
-@require_POST
-def approve_view(request, release_id):
-    release = get_object_or_404(ModelRelease.objects.select_related("run__study",
-                                                                    "run__feature_set"),
-                                pk=release_id)
+def _lead_release(request, release_id):
+    """The release, if the user sees its run and leads its study (404, else 403)."""
+    release = get_object_or_404(ModelRelease.objects.select_related(
+        "run__study", "run__feature_set", "trained_on_site", "approved_by", "withdrawn_by"),
+        pk=release_id)
     if not may_see(request.user, release.run.feature_set):
         raise Http404("no such release")
     if not is_lead(request.user, release.run.study):
-        raise PermissionDenied("only the study lead approves releases")
-    if approve(release, user=request.user):
-        messages.info(request, f"Release {release.pk} is now downloadable by the sites.")
-    return redirect("training:detail", training_id=release.run_id)
+        raise PermissionDenied("only the study lead approves or withdraws releases")
+    return release
+
+
+def _card_text(release):
+    with blobs.open_blob(release.card_sha256) as fh:
+        return fh.read().decode("utf-8", errors="replace")
+
+
+@access("checked")
+@require_http_methods(["GET", "POST"])
+def approve_view(request, release_id):
+    """The model card, then the study lead's explicit yes: a POST without ``confirm=yes``
+    approves nothing and shows the card again."""
+    release = _lead_release(request, release_id)
+    error = ""
+    if request.method == "POST" and release.state == ReleaseState.PENDING:
+        if request.POST.get("confirm") == "yes":
+            if approve(release, user=request.user):
+                messages.info(request, f"Release {release.pk} is now downloadable by the "
+                                       "sites.")
+            return redirect("training:detail", training_id=release.run_id)
+        error = ("Tick the box to confirm that you read the model card and approve this "
+                 "release for the sites.")
+    return render(request, "training/approve.html", {
+        "release": release, "run": release.run, "card": _card_text(release), "error": error},
+        status=400 if error else 200)
+
+
+@access("checked")
+@require_http_methods(["GET", "POST"])
+def withdraw_view(request, release_id):
+    """Withdraw an approved release, with the reason the sites will read."""
+    release = _lead_release(request, release_id)
+    error, reason = "", ""
+    if request.method == "POST" and release.state == ReleaseState.APPROVED:
+        reason = request.POST.get("reason", "")
+        try:
+            withdraw(release, user=request.user, reason=reason)
+        except WithdrawalError as exc:
+            error = str(exc)
+        else:
+            messages.info(request, f"Release {release.pk} is withdrawn: its files are no "
+                                   "longer given out.")
+            return redirect("training:detail", training_id=release.run_id)
+    return render(request, "training/withdraw.html", {
+        "release": release, "run": release.run, "error": error, "reason": reason},
+        status=400 if error else 200)
 
 
 @access("checked")
@@ -253,7 +304,8 @@ def site_releases(request, site_slug):
     site = get_visible_site(request.user, site_slug)
     rows = []
     for release in ModelRelease.objects.filter(run__feature_set__versions__site=site).distinct(
-            ).select_related("run__study", "run__feature_set", "trained_on_site"):
+            ).select_related("run__study", "run__feature_set", "trained_on_site",
+                             "withdrawn_by"):
         if not site_may_use(request.user, release, site):
             continue
         rows.append({"release": release,
@@ -268,6 +320,10 @@ def release_file(request, release_id, part, site_slug):
     if part not in RELEASE_PARTS:
         raise Http404("no such release file")
     require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
+    refused = refuse_withdrawn(request, release, f"release-{release.pk}"
+                               f"{RELEASE_PARTS[part][0]}")
+    if refused is not None:
+        return refused
     suffix, content_type, field = RELEASE_PARTS[part]
     filename = f"release-{release.pk}{suffix}"
     sha = getattr(release, field)

@@ -342,8 +342,18 @@ def test_analyst_trains_a_model_and_downloads_the_release(browser, portal):
 
     lead = sign_in(browser, portal, "study_lead")
     lead.goto(run_url)
-    lead.get_by_role("button", name="Approve for the sites").click()
-    lead.wait_for_load_state()
+    lead.get_by_role("link", name="Approve for the sites").click()
+    lead.wait_for_url("**/approve/")
+    assert "Intended use" in lead.locator("pre.model-card").inner_text()  # the card first
+    shoot(lead, "release-approve")
+    no_serious_findings(lead, "release approval")
+    approve = lead.get_by_role("button", name="Approve release")
+    approve.click()  # without the explicit yes the form does not go
+    assert lead.url.endswith("/approve/")
+    lead.get_by_label("I have read this model card").check()
+    approve.click()
+    lead.wait_for_url(run_url)
+    assert lead.get_by_text("is now downloadable by the sites").count() == 1
     lead.context.close()
 
     page = sign_in(browser, portal, analyst(portal))
@@ -356,6 +366,38 @@ def test_analyst_trains_a_model_and_downloads_the_release(browser, portal):
         page.get_by_role("link", name="model.skops").first.click()
     path = info.value.path()
     assert hashlib.sha256(Path(path).read_bytes()).hexdigest() == sha
+    model_url = page.get_by_role("link", name="model.skops").first.get_attribute("href")
+    page.context.close()
+
+    lead = sign_in(browser, portal, "study_lead")  # withdrawn: the files are refused
+    lead.goto(run_url)
+    lead.get_by_role("link", name="Withdraw release").click()
+    lead.get_by_label("Reason for the withdrawal").fill("Browser test: superseded.")
+    shoot(lead, "release-withdraw")
+    lead.get_by_role("button", name="Withdraw release").click()
+    lead.wait_for_url(run_url)
+    assert lead.get_by_text("Browser test: superseded.").count() == 1
+    assert lead.goto(model_url).status == 410
+    assert lead.get_by_role("heading", name="was withdrawn").count() == 1
+    shoot(lead, "release-withdrawn")
+    lead.context.close()
+
+
+def test_auditor_reads_research_events_and_asks_for_job_bookkeeping(browser, portal):
+    page = sign_in(browser, portal, "auditor")
+    page.goto("/audit/")
+    rows = page.locator("tr[data-verb]")
+    verbs = rows.evaluate_all("rows => rows.map(r => r.dataset.verb)")
+    assert verbs and not [v for v in verbs if v.split(".")[0] in ("job", "worker")], verbs
+    assert "upload.received" in verbs or "dataset_version.created" in verbs, verbs
+    shoot(page, "audit-trail")
+    no_serious_findings(page, "audit trail")
+    page.get_by_label("Include job bookkeeping").check()
+    page.get_by_role("button", name="Filter").click()
+    page.wait_for_url("**/audit/?*jobs=1*")
+    verbs = rows.evaluate_all("rows => rows.map(r => r.dataset.verb)")
+    assert [v for v in verbs if v.startswith("job.")], verbs
+    shoot(page, "audit-trail-jobs")
     page.context.close()
 
 

@@ -105,6 +105,7 @@ RULES = {
     "training:spec_diff": Rule(query="with"),
     "training:plot": Rule(),
     "training:approve": Rule(need="lead", method="post"),
+    "training:withdraw": Rule(need="lead", method="post"),
     "training:releases": Rule(level="site"),
     "training:release_file": Rule(need="download"),
     "jobs:detail": Rule(),

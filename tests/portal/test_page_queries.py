@@ -30,7 +30,9 @@ PINNED = {
     "feature set": 13,
     "training run": 9,
     "site releases": 8,
-    "audit trail": 8,
+    # one more than the list itself: the site filter lists the reader's sites (links to
+    # the events' objects take a query or two per kind of object, never per event)
+    "audit trail": 9,
     # the PROV document is built once: a query or two per dataset version (its files, its
     # parent, counts of a summarised one), one for the set's items with their quality
     # results, none per file or recording; the page then shows one line per site

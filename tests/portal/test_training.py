@@ -100,9 +100,11 @@ def test_a_run_from_spec_to_downloaded_release(client, featured, tmp_path):
     assert f"Release {release.pk}" not in client.get(page).content.decode()
     lead = member("lead", role="study_lead", site_slug=site.slug)[0]
     client.force_login(analyst)
-    assert client.post(reverse("training:approve", args=[release.pk])).status_code in (403, 404)
+    assert client.post(reverse("training:approve", args=[release.pk]),
+                       {"confirm": "yes"}).status_code in (403, 404)
     client.force_login(lead)
-    assert client.post(reverse("training:approve", args=[release.pk])).status_code == 302
+    assert client.post(reverse("training:approve", args=[release.pk]),
+                       {"confirm": "yes"}).status_code == 302
     client.force_login(analyst)
     body = client.get(page).content.decode()
     assert f"Release {release.pk}" in body and release.model_sha256 in body

@@ -38,7 +38,8 @@ def _card(release):
 def _approve_and_read(client, release, site):
     lead = member("lead", role="study_lead", site_slug=site)[0]
     client.force_login(lead)
-    assert client.post(reverse("training:approve", args=[release.pk])).status_code == 302
+    assert client.post(reverse("training:approve", args=[release.pk]),
+                       {"confirm": "yes"}).status_code == 302
     return client.get(reverse("training:releases", args=[site])).content.decode()
 
 
