@@ -156,10 +156,10 @@ def browser(portal):
         chromium.close()
 
 
-def sign_in(browser, portal, who):
+def sign_in(browser, portal, who, viewport=None):
     username, password = portal["logins"][who]
     context = browser.new_context(base_url=portal["base"], accept_downloads=True,
-                                  viewport={"width": 1280, "height": 900})
+                                  viewport=viewport or {"width": 1280, "height": 900})
     page = context.new_page()
     page.goto("/account/login/")
     page.get_by_label("Username").fill(username)
@@ -209,6 +209,34 @@ def test_each_role_signs_in_and_sees_the_pages_it_may(browser, portal):
         assert page.get_by_role("heading", level=1).count() == 1
         shoot(page, f"home-{who}")
         no_serious_findings(page, f"home page of {who}")
+        page.context.close()
+
+
+#: Elements of the header that end outside the viewport, or a page wider than it.
+OVERFLOW_JS = """() => {
+  const width = document.documentElement.clientWidth, out = [];
+  const header = document.querySelector("header.top");
+  for (const el of [header, ...header.querySelectorAll("*")]) {
+    const box = el.getBoundingClientRect();
+    if (box.width && (box.left < -0.5 || box.right > width + 0.5))
+      out.push(`${el.tagName} "${el.textContent.trim().slice(0, 30)}" ${box.left}-${box.right}`);
+  }
+  if (document.documentElement.scrollWidth > width + 0.5 && header.scrollWidth > width + 0.5)
+    out.push(`header scrolls: ${header.scrollWidth} > ${width}`);
+  return out;
+}"""
+
+
+def test_header_fits_a_phone_width_screen(browser, portal):
+    """360 px wide (a common small phone): nothing of the header runs off the side, for the
+    role with the most header items (the operator) and a site role."""
+    for who in ("operator", dm(portal)):
+        page = sign_in(browser, portal, who, viewport={"width": 360, "height": 740})
+        for path in ("/", f"/sites/{portal['sites'][0]}/"):
+            page.goto(path)
+            assert page.evaluate(OVERFLOW_JS) == [], (who, path)
+        assert page.locator("header.top").get_by_role("button", name="Sign out").is_visible()
+        shoot(page, f"header-360px-{who}")
         page.context.close()
 
 
