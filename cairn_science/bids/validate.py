@@ -606,7 +606,7 @@ def validate_dataset(root: str | os.PathLike, *, ratings: dict | None = None,
                      scale: dict | None = None, on_file: Callable | None = None,
                      deid: str = "refuse", read_data: bool = True, known: dict | None = None,
                      duration_tolerance_s: float = 1.0, sfreq_tolerance_hz: float = 0.01,
-                     table_limits: dict | None = None) -> Report:
+                     table_limits: dict | None = None, report: Report | None = None) -> Report:
     """Check a BIDS EEG dataset folder; return a :class:`Report`.
 
     Parameters
@@ -622,6 +622,9 @@ def validate_dataset(root: str | os.PathLike, *, ratings: dict | None = None,
         None gives 1-9 with low 1-3, moderate 4-6, high 7-9 (common practice, no source).
     on_file : callable | None
         ``on_file(done, total)`` after each EEG data file, for progress.
+    report : Report | None
+        The report to fill (returned); a caller's ``on_file`` may read the problems found so
+        far from it, e.g. to show them while the check runs.
     deid : "refuse" | "scrub"
         Identifier findings are errors ("refuse") or warnings, for a caller that then runs
         :func:`cairn_science.bids.deid.scrub_dataset` ("scrub").
@@ -645,7 +648,9 @@ def validate_dataset(root: str | os.PathLike, *, ratings: dict | None = None,
     settings = RatingSettings.from_dict(ratings)
     scale = Scale.from_dict(scale)
     root = Path(root)
-    report = Report(bids_version=schema.version())
+    if report is None:
+        report = Report()
+    report.bids_version = schema.version()
     if not root.is_dir():
         report.error(".", "the upload holds no dataset folder; upload the folder that holds "
                      "dataset_description.json", code="upload.no_folder")

@@ -7,6 +7,8 @@ removes) and every database row of the new version is written in one transaction
 
 import os
 import shutil
+import time
+from dataclasses import asdict
 from pathlib import Path
 
 from django.db.models import Max
@@ -24,6 +26,7 @@ from portal.datasets.models import (
     Recording,
     Upload,
     UploadMode,
+    UploadState,
     VersionFile,
 )
 from portal.datasets.services import (
@@ -112,6 +115,30 @@ def validate_upload(ctx):
     _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, result)
 
 
+class FoundSoFar:
+    """Progress of the check, and the problems and warnings found so far written to the
+    upload while it is validating (at most every ``every_s`` seconds), so that its live page
+    shows them as they arrive; the final report replaces them."""
+
+    def __init__(self, ctx, upload, every_s=2.0):
+        from cairn_science.bids.report import Report
+
+        self.ctx, self.upload, self.every_s = ctx, upload, every_s
+        self.report = Report()
+        self.written = (0, 0)
+        self.last = 0.0
+
+    def on_file(self, done, total):
+        self.ctx.progress(done, total + 1, f"checked {done} of {total} recordings")
+        counts = (len(self.report.errors), len(self.report.warnings))
+        now = time.monotonic()
+        if counts != self.written and (now - self.last >= self.every_s or done == total):
+            Upload.objects.filter(pk=self.upload.pk, state=UploadState.VALIDATING).update(
+                errors=[asdict(p) for p in self.report.errors],
+                warnings=[asdict(p) for p in self.report.warnings])
+            self.written, self.last = counts, now
+
+
 def _check_and_store(ctx, upload, archive, parent, protocol):
     """Unpack and check the upload in a work folder; if it passes, move its files into the blob
     store. Returns (files, originals, scrubbed, report); files is None when it is rejected."""
@@ -147,6 +174,7 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
             else:
                 incoming.rename(root)
         ctx.progress(0, 1, "checking the dataset")
+        so_far = FoundSoFar(ctx, upload)
         report = validate_dataset(
             root,
             ratings={
@@ -158,8 +186,7 @@ def _check_and_store(ctx, upload, archive, parent, protocol):
             scale=protocol["rating_scale"],
             deid=protocol.get("deidentification", "refuse"),
             known=_known_recordings(upload.site, upload.study),
-            on_file=lambda done, total: ctx.progress(done, total + 1,
-                                                     f"checked {done} of {total} recordings"),
+            on_file=so_far.on_file, report=so_far.report,
         )
         result = report.as_dict()
         result["warnings"] = mark_untouched(result["warnings"], untouched)

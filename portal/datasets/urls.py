@@ -7,6 +7,7 @@ urlpatterns = [
     path("sites/<slug:site_slug>/upload/", views.upload_new, name="upload_new"),
     path("uploads/<int:upload_id>/", views.upload_detail, name="upload"),
     path("uploads/<int:upload_id>/status/", views.upload_status, name="upload_status"),
+    path("uploads/<int:upload_id>/report.<slug:fmt>", views.upload_report, name="upload_report"),
     path("uploads/<int:upload_id>/confirm/", views.upload_confirm, name="upload_confirm"),
     path("uploads/<int:upload_id>/cancel/", views.upload_cancel, name="upload_cancel"),
     path("versions/<int:version_id>/", views.version_detail, name="version"),

@@ -1,11 +1,20 @@
 """Uploads (web form), their reports, dataset versions and downloads."""
 
+import csv
+import datetime
+import io
 from pathlib import Path
 
 from django.contrib import messages
 from django.core.exceptions import PermissionDenied
 from django.core.paginator import Paginator
-from django.http import FileResponse, JsonResponse, StreamingHttpResponse
+from django.http import (
+    FileResponse,
+    Http404,
+    HttpResponse,
+    JsonResponse,
+    StreamingHttpResponse,
+)
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.views.decorators.csrf import csrf_exempt
@@ -23,7 +32,7 @@ from portal.datasets.access import (
 )
 from portal.datasets.downloads import stream_version_zip
 from portal.datasets.forms import UploadForm
-from portal.datasets.models import DatasetVersion, UploadState, VersionFile
+from portal.datasets.models import DatasetVersion, Upload, UploadState, VersionFile
 from portal.datasets.services import (
     UploadError,
     cancel_held,
@@ -38,6 +47,7 @@ from portal.datasets.services import (
 )
 from portal.datasets.uploadhandler import StagingUploadHandler, csrf_refusal
 from portal.jobs.models import Job
+from portal.spreadsheet import safe_row
 
 
 def upload_job(upload):
@@ -57,6 +67,53 @@ def upload_status(request, upload_id):
                   _upload_context(request.user, upload_id))
 
 
+#: The report's columns, one row per problem or warning (CSV).
+REPORT_COLUMNS = ("upload", "severity", "path", "line", "field", "message", "code")
+
+
+def report_of(upload):
+    """The upload's report as one JSON-ready object: state, what was sent, its problems (the
+    upload is refused) and warnings, times in ISO 8601 UTC."""
+    def utc(moment):
+        return moment.astimezone(datetime.UTC).isoformat() if moment else None
+
+    version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
+    return {
+        "upload": upload.pk, "site": upload.site.slug, "study": upload.study.slug,
+        "mode": upload.mode, "state": upload.state, "label": upload.label,
+        "archive_sha256": upload.archive_sha256, "archive_bytes": upload.archive_bytes,
+        "received_at": utc(upload.created_at), "finished_at": utc(upload.finished_at),
+        "dataset_version": version.number if version else None,
+        "failure": upload.failure or None,
+        "errors": upload.errors, "warnings": upload.warnings,
+    }
+
+
+@access("checked")
+def upload_report(request, upload_id, fmt):
+    """The upload's report as a file (report.json or report.csv), for the same people as the
+    upload page; the CSV's text cells are made inert for spreadsheets."""
+    upload = visible_upload(request.user, upload_id)
+    if fmt not in ("json", "csv"):
+        raise Http404("the report is offered as report.json or report.csv")
+    report = report_of(upload)
+    name = f"upload-{upload.pk}-report.{fmt}"
+    if fmt == "json":
+        response = JsonResponse(report, json_dumps_params={"indent": 1})
+    else:
+        out = io.StringIO()
+        writer = csv.writer(out)
+        writer.writerow(REPORT_COLUMNS)
+        for severity, items in (("error", upload.errors), ("warning", upload.warnings)):
+            for item in items:
+                writer.writerow(safe_row([upload.pk, severity, item.get("path", ""),
+                                          item.get("line") or "", item.get("field") or "",
+                                          item.get("message", ""), item.get("code") or ""]))
+        response = HttpResponse(out.getvalue(), content_type="text/csv; charset=utf-8")
+    response["Content-Disposition"] = f'attachment; filename="{name}"'
+    return response
+
+
 def _upload_context(user, upload_id):
     upload = visible_upload(user, upload_id)
     version = getattr(upload, "version", None) if upload.state == UploadState.ACCEPTED else None
@@ -66,7 +123,8 @@ def _upload_context(user, upload_id):
             "removals": upload.pending_removals if held else None,
             "removal_words": removal_words(upload.pending_removals) if held else "",
             "may_confirm": held and may_upload(user, upload.site, upload.study),
-            "warning_groups": groups, "untouched_warnings": untouched}
+            "warning_groups": groups, "untouched_warnings": untouched,
+            "may_resend": may_upload(user, upload.site, upload.study)}
 
 
 @access("checked")
@@ -115,8 +173,16 @@ def upload_new(request, site_slug):
             return refusal
         request.upload_handlers = [StagingUploadHandler(request)]
         return _receive(request, site)
+    studies = upload_studies(request.user, site)
+    # "Send a corrected dataset" from an upload's report arrives with its study and mode.
+    initial = {key: request.GET[key] for key in ("study", "mode") if request.GET.get(key)}
+    corrects = None
+    if request.GET.get("corrects", "").isdigit():
+        corrects = (Upload.objects.filter(pk=int(request.GET["corrects"]), site=site,
+                                          study__in=studies).first())
     return render(request, "datasets/upload_new.html", {
-        "site": site, "form": UploadForm(studies=upload_studies(request.user, site)),
+        "site": site, "form": UploadForm(studies=studies, initial=initial),
+        "corrects": corrects,
     })
 
 

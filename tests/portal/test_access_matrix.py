@@ -73,6 +73,7 @@ RULES = {
     "datasets:upload_new": Rule(need="upload", level="site"),
     "datasets:upload": Rule(),
     "datasets:upload_status": Rule(),
+    "datasets:upload_report": Rule(),
     "datasets:upload_confirm": Rule(need="upload", method="post"),
     "datasets:upload_cancel": Rule(need="upload", method="post"),
     "datasets:restore": Rule(need="upload"),
