@@ -11,6 +11,27 @@ import pytest
 
 from tests.helpers import PYEDFLIB_MEAS_DATE
 
+# Password hashing in tests: Django's default PBKDF2 costs about 0.3 s per hash on our 2-core
+# machines, paid for every account a fixture makes and every password log-in; MD5 is the
+# hasher Django's testing documentation suggests for speed. PBKDF2 stays second so a hash
+# made before this fixture ran still verifies. The portal itself keeps Django's default.
+FAST_PASSWORD_HASHERS = ["django.contrib.auth.hashers.MD5PasswordHasher",
+                         "django.contrib.auth.hashers.PBKDF2PasswordHasher"]
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _fast_password_hashing(request):
+    """Session-wide, so accounts made by session and module fixtures are cheap too."""
+    if not request.config.pluginmanager.hasplugin("django"):
+        yield
+        return
+    from django.test.utils import override_settings
+
+    fast = override_settings(PASSWORD_HASHERS=FAST_PASSWORD_HASHERS)  # clears hasher caches
+    fast.enable()
+    yield
+    fast.disable()
+
 
 @pytest.fixture(autouse=True)
 def _test_settings(request):

@@ -158,7 +158,9 @@ def test_generated_quality_results_have_the_shape_of_a_real_run():
                 assert set(reason) == {"check", "words", "value", "threshold"}
         again = effective_verdict(got, {}, settings=QCSettings.from_stored(run.settings))
         assert again["verdict"] == run.verdict == got["verdict"]
-        assert again["bad_channels"] == got["bad_channels"]
+        # Same channels; the order may differ on PostgreSQL, whose jsonb reorders the keys of
+        # the stored channels object that effective_verdict walks (the list keeps its order).
+        assert sorted(again["bad_channels"]) == sorted(got["bad_channels"])
 
 
 def test_generated_training_scores_have_the_shape_of_a_real_run():

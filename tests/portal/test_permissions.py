@@ -100,7 +100,9 @@ def _counts():
 WRITE_ONLY = {"studies:protocol_edit", "datasets:upload_new", "api:uploads",
               "api:upload_chunk", "api:upload_finish", "quality:rerun", "quality:override",
               "features:new", "training:new", "training:rerun", "training:approve",
-              "training:withdraw", "api:training", "lineage:reproduce"}
+              "training:withdraw", "api:training", "lineage:reproduce",
+              "datasets:upload_confirm", "datasets:upload_cancel", "datasets:restore",
+              "api:upload_confirm"}
 
 
 def test_auditor_reads_everything_of_their_study_and_writes_nothing(client, consortium):
