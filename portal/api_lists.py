@@ -96,7 +96,12 @@ def _moment(raw, field, *, end):
                        f"(2026-03-01T12:00:00Z), got {raw!r}", field=field)
     if timezone.is_naive(moment):
         moment = timezone.make_aware(moment, datetime.UTC)
-    return moment
+    try:
+        # in UTC: PostgreSQL refuses offsets beyond ±15:59 that ISO 8601 syntax allows
+        return moment.astimezone(datetime.UTC)
+    except OverflowError:
+        raise BadQuery(f"{field} {raw!r} is outside the dates the portal can compare",
+                       field=field) from None
 
 
 def filtered(request, queryset, filters):
