@@ -283,6 +283,9 @@ def test_an_expired_token_is_refused_with_a_clear_error(client, world):
     assert 'error="invalid_token"' in response["WWW-Authenticate"]
     soon = bearer(user, expires_at=timezone.now() + datetime.timedelta(hours=1))
     assert get(client, "me", soon).status_code == 200
+    client.force_login(user)  # the tokens page says which one expired
+    rows = client.get(reverse("accounts:tokens")).content.decode().split("<tr>")
+    assert sum("expired</td>" in row for row in rows) == 1
 
 
 def test_a_read_only_token_reads_and_is_refused_on_every_write(client, world):
