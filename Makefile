@@ -35,9 +35,8 @@ services:
 test: install services
 	bash .ci/browser
 	$(BIN)/ruff check .
-	DATABASE_URL=$(TEST_DATABASE_URL) CELERY_BROKER_URL=$(TEST_BROKER_URL) \
-	CAIRN_REQUIRE_SERVICES=1 CAIRN_VAR_DIR=$(CURDIR)/var/test \
-	$(BIN)/python -m pytest -q
+	TEST_DATABASE_URL=$(TEST_DATABASE_URL) TEST_BROKER_URL=$(TEST_BROKER_URL) BIN=$(BIN) \
+	bash .ci/suite
 
 unit: install
 	$(BIN)/python -m pytest -q -p no:django tests/unit
