@@ -140,13 +140,18 @@ class TrainingSpec:
             raise SpecError({"spec": ["send the spec as a JSON object"]})
         data = dict(data)
 
-        def section(key):
+        def section(key, fields=None):
+            """The object under ``key``; a field not in ``fields`` is named, so a misspelt
+            setting is refused instead of silently left at its default (validation's own
+            check names its unknown fields)."""
             value = data.get(key)
             if value is None:
                 return {}
             if not isinstance(value, dict):
                 add(key, f"give an object ({{…}}), not {type(value).__name__} {value!r}")
                 return {}
+            for name in sorted(set(value) - set(fields if fields is not None else value)):
+                add(f"{key}.{name}", f"unknown field; known: {', '.join(sorted(fields))}")
             return value
 
         known = {"feature_set", "label", "include", "features", "normalisation", "validation",
@@ -157,14 +162,16 @@ class TrainingSpec:
         if not isinstance(feature_set, int):
             add("feature_set", "give the id of a feature set (a whole number)")
 
-        label = {"kind": "level", "classes": None, "map": None, **section("label")}
+        label_defaults = {"kind": "level", "classes": None, "map": None}
+        label = {**label_defaults, **section("label", label_defaults)}
         if label["kind"] not in LABEL_KINDS:
             add("label.kind", f"choose one of {', '.join(LABEL_KINDS)}")
         if label["map"] is not None and not isinstance(label["map"], dict):
             add("label.map", 'give an object from value to class, e.g. {"low": "task"}')
 
-        include = {"sites": None, "qc_verdicts": list(DEFAULT_QC),
-                   "min_windows_per_recording": 1, **section("include")}
+        include_defaults = {"sites": None, "qc_verdicts": list(DEFAULT_QC),
+                            "min_windows_per_recording": 1}
+        include = {**include_defaults, **section("include", include_defaults)}
         if include["sites"] is not None and sites is not None:
             unknown = sorted(set(include["sites"]) - set(sites))
             if unknown:
@@ -177,8 +184,8 @@ class TrainingSpec:
                 include["min_windows_per_recording"] < 1:
             add("include.min_windows_per_recording", "give a whole number ≥ 1")
 
-        features = {"include": ["*"], "exclude": [], "bands": None, "channels": None,
-                    **section("features")}
+        features_defaults = {"include": ["*"], "exclude": [], "bands": None, "channels": None}
+        features = {**features_defaults, **section("features", features_defaults)}
         if columns is not None:
             chosen = select_columns(columns, features)
             if not chosen:
@@ -196,8 +203,9 @@ class TrainingSpec:
                     if missing:
                         add(f"features.{key}", f"{', '.join(missing)} not in the feature set")
 
-        normalisation = {"participant": "none", "site_standardise": False,
-                         **section("normalisation")}
+        normalisation_defaults = {"participant": "none", "site_standardise": False}
+        normalisation = {**normalisation_defaults,
+                         **section("normalisation", normalisation_defaults)}
         if normalisation["participant"] not in NORMALISATIONS:
             add("normalisation.participant", f"choose one of {', '.join(NORMALISATIONS)}")
         if normalisation["participant"] == "baseline" and label["kind"] == "condition":
@@ -235,15 +243,15 @@ class TrainingSpec:
         for name in sorted({n for n in names if names.count(n) > 1}):
             add("models", f"two models are named {name!r}; names must be unique")
 
-        statistics = {**STATISTICS_DEFAULTS, **section("statistics")}
+        statistics = {**STATISTICS_DEFAULTS, **section("statistics", STATISTICS_DEFAULTS)}
         for problem in validate(statistics, STATISTICS_CONSTRAINTS, prefix="statistics",
                                 refuse_unknown=False):
             add(problem.field, problem.message)
         seed = data.get("seed", 0)
         if not isinstance(seed, int):
             add("seed", "give a whole number")
-        release = {"pooled": True, "per_site": False, "model": None,
-                   **section("release")}
+        release_defaults = {"pooled": True, "per_site": False, "model": None}
+        release = {**release_defaults, **section("release", release_defaults)}
         if release["model"] is not None and release["model"] not in names:
             add("release.model", f"{release['model']!r} is not one of the models")
         if errors:

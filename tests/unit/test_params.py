@@ -172,6 +172,24 @@ def test_n_splits_five_is_refused_naming_the_field():
         Scheme("grouped_kfold", n_splits="five")
 
 
+@pytest.mark.parametrize("section, typo, known", [
+    ("statistics", "permutation", "bootstrap, paired_repeats, paired_splits, paired_test, "
+                                  "permutations"),
+    ("label", "knd", "classes, kind, map"),
+    ("include", "site", "min_windows_per_recording, qc_verdicts, sites"),
+    ("features", "band", "bands, channels, exclude, include"),
+    ("normalisation", "participants", "participant, site_standardise"),
+    ("release", "per-site", "model, per_site, pooled"),
+])
+def test_a_misspelt_field_in_a_spec_section_is_refused(section, typo, known):
+    """A misspelt setting ("permutation": 200) used to be ignored, leaving the default (no
+    permutations) while the person believed otherwise: every section names it now."""
+    with pytest.raises(SpecError) as caught:
+        TrainingSpec.from_dict({"feature_set": 1, "models": [{"learner": "lda"}],
+                                section: {typo: 1}})
+    assert caught.value.errors[f"{section}.{typo}"] == [f"unknown field; known: {known}"]
+
+
 def test_spec_defaults_come_from_the_parameter_objects():
     spec = TrainingSpec.from_dict({"feature_set": 1, "models": [
         {"learner": "lda"}, {"ensemble": "bagging", "learner": "knn"}]})
