@@ -123,6 +123,10 @@ def test_a_finished_work_status_loads_the_results_into_the_page(rf):
     assert f'hx-get="{page}"' in loader.group(1) and 'hx-trigger="load"' in loader.group(1)
     assert 'hx-select="main"' in loader.group(1) and 'hx-target="main"' in loader.group(1)
     assert "finished" in html and ">done<" not in html  # the state in words
+    # the page fetched by the loader (an htmx request too) must not load itself again
+    again = rf.get("/features/7/", HTTP_HX_REQUEST="true", HTTP_HX_CURRENT_URL=page)
+    assert "data-results-loader" not in render_to_string("jobs/_work_status.html", context,
+                                                         request=again)
     # still running: the part polls itself and loads nothing yet
     html = render_to_string("jobs/_work_status.html", dict(context, state="running",
                                                            final=False), request=request)
