@@ -22,10 +22,13 @@ WAIT = "#a86a00"  # amber
 BAD = "#9b1b22"  # deep red
 KNOWN_COLOURS = {
     "pass": GOOD,
+    "usable": GOOD,
     "accepted": GOOD,
     "review": WAIT,
+    "needs a look": WAIT,
     "waiting": WAIT,
     "fail": BAD,
+    "not usable": BAD,
     "rejected": BAD,
 }
 # Any other name: one of these greys (each >= 3:1 on white), picked by a hash of the name so

@@ -20,6 +20,7 @@ from portal.accounts.permissions import (
 from portal.datasets.access import upload_studies
 from portal.datasets.models import Recording, Upload, UploadState
 from portal.jobs.models import Job
+from portal.words import words
 
 PAGE_SIZE = 25
 SVG_CACHE_S = 24 * 3600
@@ -159,7 +160,7 @@ def study_overview(request, study_slug):
         rows.append({
             "site": site, "numbers": n, "version": version,
             "recordings": version.n_recordings if version else 0,
-            "verdict_bar": cached_svg("share", charts.share_bar, n["verdicts"],
+            "verdict_bar": cached_svg("share", charts.share_bar, _verdict_words(n["verdicts"]),
                                       label=f"{site.name}: verdicts"),
             "head": cached_svg("head", headplot.head_svg, dict(sorted(
                 n["channels_flagged"].items())), label=site.name, size_px=200)
@@ -178,13 +179,20 @@ def study_overview(request, study_slug):
         "upload_chart": cached_svg("weeks", charts.weekly_bars, weeks, numbers["upload_weeks"],
                                    label="Uploads per week, by outcome", unit="uploads"),
         "verdict_chart": cached_svg("weeks", charts.weekly_bars, weeks,
-                                    numbers["verdict_weeks"], label="Quality verdicts per week",
+                                    _verdict_words(numbers["verdict_weeks"]),
+                                    label="Quality verdicts per week",
                                     unit="recordings"),
         "feature_set": feature_set,
         "effects": feature_set.site_effects if feature_set else None,
         "comparisons": _comparisons(study, visible_ids),
         "uploads": uploads,
     })
+
+
+def _verdict_words(by_verdict):
+    """{verdict: value} with the verdicts in words ("usable", "needs a look", "not usable"),
+    as the charts name their parts."""
+    return {words(verdict, "verdict"): value for verdict, value in by_verdict.items()}
 
 
 UPLOAD_SORTS = {"received": "created_at", "state": "state", "size": "archive_bytes",

@@ -128,6 +128,10 @@ def test_pages_write_dates_one_way_and_show_no_raw_codes(client, bulk):
         for badge in badges[name]:
             assert badge.strip() not in codes, f"{name}: a badge shows the code {badge!r}"
     assert dated >= len(texts) // 2, "the pages should show dates; the check saw too few"
+    # the study overview's verdict figures name the verdicts in words too
+    overview = client.get(reverse("dashboard:study", args=[bulk["study"].slug])).content.decode()
+    assert re.search(r"verdicts: usable [\d.]+ %, needs a look [\d.]+ %, not usable", overview)
+    assert not re.search(r"\b(?:pass|review|fail): \d", overview)
     # the quality page names each measurement with its unit and the side that is bad
     # (cairn_science.qc.checks.MEASURES; the round's thresholds)
     quality = texts["recording quality (lead)"]
