@@ -174,10 +174,10 @@ def test_generated_requests_get_answers_the_description_declares(study, live_sch
             assert set(statuses) == {403}, (operation.label, statuses)
         checked[operation.label] = len(statuses)
         if not write and operation.query:
-            # parameters outside what the description allows (or a spoiled Authorization
-            # header): refused in the declared shape, never a crash
+            # parameters outside what the description allows: each answer checked as above
+            # (never a crash, status and body as declared). Not every one is refused: an
+            # empty value counts as no filter, and the token sent replaces a spoiled header.
             wrong = _fuzz(operation, study["auth"], GenerationMode.NEGATIVE)
-            assert set(wrong) <= {400, 401, 404}, (operation.label, wrong)
             if not operation.path_parameters:  # else most ids name nothing: 404 first
                 assert 400 in wrong, (operation.label, wrong)
             checked[operation.label] += len(wrong)
