@@ -203,14 +203,24 @@ def model_card(estimator: BaseEstimator, *, name: str, kind: str, training: Mapp
     return c.render()
 
 
+#: Where pip finds PyTorch's CPU-only wheels (versions like 2.13.0+cpu); from memory of
+#: PyTorch's install instructions.
+TORCH_CPU_INDEX = "https://download.pytorch.org/whl/cpu"
+
+
 def bundle(files: Mapping[str, bytes], *, requirements: Sequence[str]) -> bytes:
     """One zip archive of a release's files (``{name: bytes}``) and its requirements list;
-    byte-identical for identical inputs (sorted names, fixed timestamps)."""
+    byte-identical for identical inputs (sorted names, fixed timestamps). A CPU build of
+    PyTorch (a ``+cpu`` version) is not on PyPI: the list then names PyTorch's CPU index."""
+    index = ""
+    if any("+cpu" in line for line in requirements):
+        index = (f"# PyTorch's CPU builds come from its own index (PyPI has none):\n"
+                 f"--extra-index-url {TORCH_CPU_INDEX}\n")
     members = {**files, "requirements.txt": (
         "# What this release was made with. Install into a fresh environment:\n"
         "#   pip install -r requirements.txt\n"
         "#   pip install --no-deps \"cairn-science @ git+<the portal's repository>\"\n"
-        + "\n".join(requirements) + "\n").encode()}
+        + index + "\n".join(requirements) + "\n").encode()}
     buffer = io.BytesIO()
     with zipfile.ZipFile(buffer, "w") as archive:
         for name in sorted(members):

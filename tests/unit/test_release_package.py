@@ -201,3 +201,19 @@ def test_participant_normalisation_is_a_z_score_on_the_reference():
     values = np.array([[2.0, 6.0], [5.0, 4.0]])
     expected = np.array([[0.0, 1.0], [3.0, -1.0]])
     assert np.allclose(participant_normalise(values, reference), expected)
+
+
+def test_a_release_pinning_a_cpu_build_of_pytorch_names_its_index():
+    """A release with a recurrent member pins PyTorch's CPU build (e.g. 2.13.0+cpu), which
+    PyPI does not carry: its requirements.txt names PyTorch's CPU index as an extra index (a
+    line pip's requirements-file format takes), and one without it names no index."""
+    files = {"model.skops": b"m", "model-card.md": b"c", "features.json": b"{}"}
+    with_torch = zipfile.ZipFile(io.BytesIO(bundle(
+        files, requirements=["numpy==2.4.6", "torch==2.13.0+cpu"]))).read("requirements.txt")
+    lines = with_torch.decode().splitlines()
+    assert "--extra-index-url https://download.pytorch.org/whl/cpu" in lines
+    assert lines.index("--extra-index-url https://download.pytorch.org/whl/cpu") < \
+        lines.index("torch==2.13.0+cpu")
+    plain = zipfile.ZipFile(io.BytesIO(bundle(files, requirements=["numpy==2.4.6"]))).read(
+        "requirements.txt").decode()
+    assert "--extra-index-url" not in plain
