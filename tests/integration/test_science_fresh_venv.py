@@ -26,12 +26,13 @@ REPO = Path(__file__).resolve().parents[2]
 #: What tests/unit imports beyond the science's own dependencies (pyproject.toml): the test
 #: runner and property tests, reference libraries the science is checked against, readers
 #: and writers of the BIDS examples and test files, pybids/bidsschematools that the BIDS
-#: validation part loads when it runs, and PyTorch that the recurrent learners load when they
-#: fit. Django, pytest-django, celery: never. Everything they pull in is held to the versions
-#: requirements*.txt pin (a constraints file), as the portal's environment is.
+#: validation part loads when it runs (PyTorch, which the recurrent learners load when they
+#: fit, comes with the package's "recurrent" extra). Django, pytest-django, celery: never.
+#: Everything they pull in is held to the versions requirements*.txt pin (a constraints
+#: file), as the portal's environment is.
 UNIT_TEST_PACKAGES = (
     "pytest", "hypothesis", "pybids", "bidsschematools", "bids-validator", "edfio", "pybv",
-    "pyedflib", "pyprep", "antropy", "mne-features", "torch",
+    "pyedflib", "pyprep", "antropy", "mne-features",
 )
 
 #: What the copy holds: the package, the tests and their fixtures; portal/, the Makefile,
@@ -87,9 +88,9 @@ def test_science_installs_and_unit_tests_pass_without_django(tmp_path):
     packages = [f"{name}=={pins[name]}" for name in UNIT_TEST_PACKAGES]
     constraints = tmp_path / "constraints.txt"
     constraints.write_text("".join(f"{name}=={version}\n" for name, version in pins.items()))
-    done = _run([python, "-m", "pip", "install", "--quiet", "-c", str(constraints), ".",
-                 *packages], cwd=checkout, env=clean,
-                what="pip install . and the unit tests' packages")
+    done = _run([python, "-m", "pip", "install", "--quiet", "-c", str(constraints),
+                 ".[recurrent]", *packages], cwd=checkout, env=clean,
+                what="pip install .[recurrent] and the unit tests' packages")
     assert done.returncode == 0, done.stderr[-3000:]
 
     probe = ("import importlib.util as u, sys; "

@@ -94,6 +94,9 @@ def test_the_science_package_pins_what_the_portal_pins():
         names.add(canonicalize_name(name))
         assert portal[canonicalize_name(name)] == version, dependency
     assert names == {canonicalize_name(n) for n in SCIENCE_DEPENDENCIES}
+    for dependency in project["optional-dependencies"]["recurrent"]:
+        name, version = dependency.split("==")
+        assert portal[canonicalize_name(name)] == version, dependency
     listed = release_requirements()
     assert {canonicalize_name(r.split("==")[0]) for r in listed} >= names
     for requirement in listed:
