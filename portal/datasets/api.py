@@ -92,7 +92,7 @@ def upload_json(upload):
         out["needs_confirmation"] = {
             "message": f"this snapshot would remove {removal_words(removals)}; nothing has "
                        "changed yet. POST {\"allow_removals\": true} to "
-                       f"/api/uploads/{upload.pk}/confirm/ to go on, or "
+                       f"/api/v1/uploads/{upload.pk}/confirm/ to go on, or "
                        "{\"allow_removals\": false} to cancel",
             "files": removals["files"], "first_paths": removals["first_paths"],
             "participants": removals["participants"],
