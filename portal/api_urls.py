@@ -19,6 +19,7 @@ from portal.api_spec import (
 )
 from portal.dashboard.views import api_me
 from portal.datasets import api
+from portal.datasets.models import UploadMode
 from portal.features import api as features_api
 from portal.jobs.views import api_job
 from portal.quality import api as quality_api
@@ -38,7 +39,7 @@ UPLOAD_SCHEMA = obj({"upload": INTEGER, "state": STRING, "site": STRING, "study"
                      "errors": array({}), "warnings": array({}), "job": {},
                      "allow_removals": BOOLEAN}, extra=True)
 UPLOAD_BODY = {"type": "object", "required": ["site", "study", "size"], "properties": {
-    "site": STRING, "study": STRING, "mode": {"type": "string", "enum": ["snapshot", "add"]},
+    "site": STRING, "study": STRING, "mode": {"type": "string", "enum": list(UploadMode.values)},
     "filename": STRING, "size": INTEGER, "allow_removals": BOOLEAN}}
 RUN_REPORT_SCHEMA = obj({"run": INTEGER, "state": STRING, "error": nullable(STRING),
                          "warning": nullable(STRING), "models": ANY_OBJECT,
