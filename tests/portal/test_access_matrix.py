@@ -88,8 +88,8 @@ RULES = {
     "quality:recording": Rule(),
     "quality:override": Rule(need="run", method="post"),
     "quality:plot": Rule(),
-    "features:study": Rule(level="study"),
     "quality:signal": Rule(),
+    "features:study": Rule(level="study"),
     "features:new": Rule(need="run", method="post", level="study"),
     "features:detail": Rule(),
     "features:summary": Rule(),
@@ -126,8 +126,6 @@ RULES = {
     "api:upload_confirm": Rule(need="upload", method="post"),
     "api:training": Rule(need="run", method="post", level="study"),
     "api:training_run": Rule(),
-}
-
     "api:openapi": Rule(level="public"),
     "api:studies": Rule(level="list"),
     "api:sites": Rule(level="list"),
@@ -147,6 +145,8 @@ RULES = {
     "api:releases": Rule(level="list"),
     "api:release": Rule(),
     "api:release_download": Rule(need="download"),
+}
+
 #: Kinds the lineage and "made from this" pages take, each tried in every scope.
 LINEAGE_KINDS = ("training", "release", "features", "version")
 DERIVED_KINDS = ("upload", "version", "recording", "qc", "features", "training")
