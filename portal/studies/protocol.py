@@ -229,7 +229,8 @@ def parse_names(text):
 
 
 def parse_levels(text):
-    """Lines like 'low 1-3' → level dicts; raises ValueError naming the line."""
+    """Lines like 'low 1-3' → level dicts from the lowest ratings up (whatever order they
+    were typed in); raises ValueError naming the line."""
     levels = []
     for number, line in enumerate(text.splitlines(), start=1):
         if not line.strip():
@@ -241,7 +242,7 @@ def parse_levels(text):
             raise ValueError(f"line {number}: {line.strip()!r} — expected 'name min-max', "
                              "e.g. 'low 1-3'") from None
         levels.append({"name": name, "min": lo, "max": hi})
-    return levels
+    return sorted(levels, key=lambda level: level["min"])  # the scale's order, as listed
 
 
 def parse_bands(text):

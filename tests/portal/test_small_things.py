@@ -1,6 +1,7 @@
 """Small things a new user of the demo noticed: the log-ins file says who reaches what (a
 study lead reaches every site of the study, not the one site its membership is recorded
-at), and every page links the portal's own icon, served from static. Plumbing: common
+at), every page links the portal's own icon, served from static, and a rating scale's
+levels are listed from the lowest ratings up however they were typed. Plumbing: common
 practice, no source."""
 
 import xml.etree.ElementTree as ET
@@ -42,3 +43,21 @@ def test_pages_link_the_portal_icon_served_from_static(client):
     path = finders.find("favicon.svg")
     root = ET.parse(path).getroot()
     assert root.tag == "{http://www.w3.org/2000/svg}svg" and root.get("viewBox") == "0 0 32 32"
+
+
+def test_a_scale_typed_out_of_order_is_kept_and_listed_from_the_lowest_ratings_up(
+        client, consortium):
+    from portal.accounts.models import Study
+    from portal.studies.forms import ProtocolForm
+    from portal.studies.models import current_protocol
+
+    study = Study.objects.get(slug="study-a")
+    data = {**ProtocolForm.initial_from(current_protocol(study).data),
+            "levels": "swamped 7-9\ncalm 1-3\nbusy 4-6", "note": "new names"}
+    client.force_login(consortium["people"]["lead_a"])
+    assert client.post(reverse("studies:protocol_edit", args=["study-a"]),
+                       data).status_code == 302
+    stored = current_protocol(study).data["rating_scale"]["levels"]
+    assert [level["name"] for level in stored] == ["calm", "busy", "swamped"]
+    page = client.get(reverse("studies:protocol", args=["study-a"])).content.decode()
+    assert page.index(">calm<") < page.index(">busy<") < page.index(">swamped<")
