@@ -187,10 +187,13 @@ def header_files(root: str | os.PathLike) -> list[str]:
     return sorted(found)
 
 
-def header_findings(root: str | os.PathLike, relpath: str) -> list[Finding]:
+def header_findings(root: str | os.PathLike, relpath: str, *,
+                    companions: list | None = None) -> list[Finding]:
     """Findings in one EDF/BDF header, or in one BrainVision header and its marker file.
 
     Files too damaged to parse give none here; the structure checks report them.
+    ``companions``: what :func:`companion_files` already gave for this header in the same
+    run (the validator has it), so the header and marker are not parsed again for it.
     """
     full = Path(root) / relpath
     try:
@@ -205,10 +208,11 @@ def header_findings(root: str | os.PathLike, relpath: str) -> list[Finding]:
         if full.suffix.lower() == ".vhdr" and size:
             header = read_vhdr(full)
             findings = vhdr_findings(relpath, header)
-            try:
-                companions = companion_files(root, relpath)
-            except CompanionError:
-                return findings
+            if companions is None:
+                try:
+                    companions = companion_files(root, relpath)
+                except CompanionError:
+                    return findings
             for companion in companions:
                 marker = Path(root) / companion.path
                 if companion.key == "MarkerFile" and marker.is_file():

@@ -711,7 +711,8 @@ def validate_dataset(root: str | os.PathLike, *, ratings: dict | None = None,
             block = info.blocks[0]
             info.condition, info.rating, info.level = block.condition, block.rating, block.level
     for path in deid_checks.header_files(root):
-        report.findings.extend(deid_checks.header_findings(root, path))
+        report.findings.extend(deid_checks.header_findings(
+            root, path, companions=ctx.companions.get(path)))
     _summarise_recommended(ctx, len(recordings))
     _findings_to_problems(report, deid)
     return report
