@@ -11,6 +11,7 @@ import time
 from dataclasses import asdict
 from pathlib import Path
 
+from django.db import connection
 from django.db.models import Max
 
 from cairn_science.archive import ArchiveError, extract_archive, list_files
@@ -243,8 +244,8 @@ def _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, resul
         for label in labels:
             participants[label], _ = Participant.objects.get_or_create(site=upload.site,
                                                                       label=label)
-        for info in result["recordings"]:
-            recording = Recording.objects.create(
+        recordings = [
+            Recording(
                 version=version, participant=participants[info["participant"]],
                 path=info["path"], sha256=files[info["path"]][0],
                 session=info.get("session", ""), task=info.get("task", ""),
@@ -253,12 +254,20 @@ def _accept(ctx, upload, parent, parent_files, files, originals, scrubbed, resul
                 channel_names=info.get("channel_names", []), duration_s=info["duration_s"],
                 power_line_hz=info.get("power_line_hz"),
             )
-            Block.objects.bulk_create([
-                Block(recording=recording, onset_s=b["onset_s"], duration_s=b["duration_s"],
-                      condition=b.get("condition") or "", rating=b.get("rating"),
-                      level=b.get("level") or "")
-                for b in info.get("blocks", [])
-            ])
+            for info in result["recordings"]
+        ]
+        if connection.features.can_return_rows_from_bulk_insert:  # SQLite, PostgreSQL
+            Recording.objects.bulk_create(recordings)  # sets each one's primary key
+        else:
+            for recording in recordings:
+                recording.save()
+        Block.objects.bulk_create([
+            Block(recording=recording, onset_s=b["onset_s"], duration_s=b["duration_s"],
+                  condition=b.get("condition") or "", rating=b.get("rating"),
+                  level=b.get("level") or "")
+            for recording, info in zip(recordings, result["recordings"], strict=True)
+            for b in info.get("blocks", [])
+        ])
         unchanged = {p for p in parent_files if files.get(p) == parent_files[p]}
         finish_upload(upload, errors=[], warnings=mark_untouched(result["warnings"], unchanged))
         discard_staging_on_commit(upload)
