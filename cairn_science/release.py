@@ -65,7 +65,9 @@ def _number(value, digits=3):
 
 
 def _scheme_text(scheme):
-    return (f"{scheme['scheme']}"
+    from cairn_science.learning.validation import SCHEME_WORDS
+
+    return (f"{SCHEME_WORDS.get(scheme['scheme'], scheme['scheme'])}"
             + (f", {scheme.get('n_splits')} folds × {scheme.get('n_repeats', 1)} repeat(s)"
                if scheme["scheme"] == "grouped_kfold" else ""))
 
@@ -173,6 +175,9 @@ def model_card(estimator: BaseEstimator, *, name: str, kind: str, training: Mapp
     """The model card as Markdown (skops' card support)."""
     from skops import card
 
+    from cairn_science.learning.spec import LABEL_KIND_WORDS
+    from cairn_science.qc.verdict import VERDICT_WORDS
+
     c = card.Card(estimator, template=None)
     c.add(**{
         "Model": f"{name} ({'trained on one site' if kind == 'site_only' else 'pooled'}"
@@ -184,7 +189,8 @@ def model_card(estimator: BaseEstimator, *, name: str, kind: str, training: Mapp
         "Training data": (
             f"Sites: {', '.join(training['sites'])}. Participants: {training['participants']}. "
             f"Windows: {training['windows']}. Recordings with quality verdicts "
-            f"{', '.join(training['qc_verdicts'])}. Label: {training['label']['kind']}"
+            f"{', '.join(VERDICT_WORDS.get(v, v) for v in training['qc_verdicts'])}. Label: "
+            f"{LABEL_KIND_WORDS.get(training['label']['kind'], training['label']['kind'])}"
             + (f" mapped by {json.dumps(training['label'].get('map'))}"
                if training['label'].get('map') else "")
             + f". Feature set {training['feature_set']}, training run "

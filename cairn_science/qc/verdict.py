@@ -10,6 +10,8 @@ if TYPE_CHECKING:
     from .settings import QCSettings
 
 ORDER = ("pass", "review", "fail")
+#: Each verdict in the words pages and model cards show for it.
+VERDICT_WORDS = {"pass": "usable", "review": "needs a look", "fail": "not usable"}
 MOSTLY_UNRELATED_SHARE = 0.5
 
 

@@ -8,11 +8,13 @@ from django.conf import settings as django_settings
 from django.db import models
 from django.utils import timezone
 
+from cairn_science.qc.verdict import VERDICT_WORDS
+
 
 class Verdict(models.TextChoices):
-    PASS = "pass", "usable"
-    REVIEW = "review", "needs a look"
-    FAIL = "fail", "not usable"
+    PASS = "pass", VERDICT_WORDS["pass"]
+    REVIEW = "review", VERDICT_WORDS["review"]
+    FAIL = "fail", VERDICT_WORDS["fail"]
 
 
 class QCRun(models.Model):
