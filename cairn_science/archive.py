@@ -29,6 +29,7 @@ from typing import BinaryIO
 CHUNK_BYTES = 1024 * 1024
 MAX_NAME_PART_BYTES = 255  # the longest file or folder name common file systems store
 MAX_PATH_BYTES = 1024
+PROBE_BYTES = 64 * 1024  # read first to tell files that cannot be copies of each other
 MAX_TAR_HEADER_BYTES = 1024 * 1024  # per member: long names and extended headers, held whole
 MAX_ZIP_DIRECTORY_BYTES = 64 * 1024 * 1024  # zipfile reads the central directory whole
 ZIP_METHODS = {zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED, zipfile.ZIP_BZIP2, zipfile.ZIP_LZMA}
@@ -414,7 +415,8 @@ def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compress
             tar = tarfile.open(fileobj=stream, mode="r|" if compressed else "r:",
                                tarinfo=_StrictTarInfo)
         buffer = None if compressed else bytearray(CHUNK_BYTES)
-        written = {}  # sha256 of each file written: its path (with link_duplicates)
+        written = {}  # with link_duplicates: each content's sha256, the file holding it
+        probes = set()  # and each file's size with the sha256 of its first bytes
         with tar:
             names, entries, declared = _Names(label, limits), 0, 0
             count = _counter(label, packed_bytes, limits)
@@ -449,12 +451,22 @@ def _unpack_tar(archive, label, into, limits, packed_bytes, hashing, *, compress
                         member = tar.extractfile(info)
                     _copy(label, info.name, member, target, info.size, count, digest)
                 elif link_duplicates:
-                    digest = _hash_span(label, info.name, raw, info.offset_data, info.size,
-                                        count, buffer)
-                    key = (digest.digest(), info.size)
-                    _link_or_copy(label, info.name, raw, info.offset_data, target, info.size,
-                                  written.get(key), buffer)
-                    written.setdefault(key, target)
+                    # Only a member whose size and first bytes an earlier one had can be a
+                    # copy; only such a member is hashed whole before it is written.
+                    probe = (info.size, _hash_span(label, info.name, raw, info.offset_data,
+                                                   min(info.size, PROBE_BYTES),
+                                                   lambda *_: None, buffer).digest())
+                    if probe in probes:
+                        digest = _hash_span(label, info.name, raw, info.offset_data,
+                                            info.size, count, buffer)
+                        _link_or_copy(label, info.name, raw, info.offset_data, target,
+                                      info.size, written.get(digest.digest()), buffer)
+                    else:
+                        digest = hashlib.sha256()
+                        _copy_span(label, info.name, raw, info.offset_data, target, info.size,
+                                   count, digest, buffer)
+                    probes.add(probe)
+                    written.setdefault(digest.digest(), target)
                 else:
                     _copy_span(label, info.name, raw, info.offset_data, target, info.size,
                                count, digest, buffer)
@@ -502,8 +514,9 @@ def extract_archive(archive_path: str | os.PathLike, destination: str | os.PathL
     With ``digests`` (a dict), each file's sha256 hex digest, computed from the bytes as they
     were written, is stored in it under the file's POSIX path relative to ``destination``.
     With ``link_duplicates``, a file of a plain .tar whose content equals an earlier file's is
-    made a hard link to it instead of being written again (the archive's bytes are hashed
-    before they are written, so this costs a second read of each file from the archive). Only
+    made a hard link to it instead of being written again (a file whose size and first 64 KiB
+    match an earlier file's is hashed before it is written, which costs a second read of it
+    from the archive). Only
     for callers that never write into the unpacked files: a change to one changes all its
     links.
     """

@@ -130,3 +130,21 @@ def test_linking_keeps_the_limits(folder, tmp_path):
         extract_archive(archive, tmp_path / "out", link_duplicates=True,
                         limits=ExtractLimits(max_total_bytes=total - 1))
     assert not (tmp_path / "out").exists()
+
+
+def test_same_size_and_start_but_other_bytes_are_not_linked(tmp_path):
+    rng = random.Random(9)
+    start = rng.randbytes(200 * 1024)
+    source = tmp_path / "near-copies"
+    (source / "sub-01/eeg").mkdir(parents=True)
+    names = ["a_eeg.eeg", "b_eeg.eeg", "c_eeg.eeg"]
+    (source / "sub-01/eeg" / names[0]).write_bytes(start + b"first end")
+    (source / "sub-01/eeg" / names[1]).write_bytes(start + b"other end")
+    (source / "sub-01/eeg" / names[2]).write_bytes(start + b"first end")
+    archive = _pack(source, tmp_path / "upload.tar", "tar")
+    digests = {}
+    extract_archive(archive, tmp_path / "out", digests=digests, link_duplicates=True)
+    out = tmp_path / "out/sub-01/eeg"
+    assert digests == _expected(tmp_path / "out") == _expected(source)
+    inodes = [(out / name).stat().st_ino for name in names]
+    assert inodes[0] == inodes[2] != inodes[1]
