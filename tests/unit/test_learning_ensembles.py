@@ -393,11 +393,28 @@ def test_nested_params_and_pipeline_groups(wine):
     assert {g for rows in pipe.named_steps["model"].draws_ for g in groups[rows]} <= set(groups)
 
 
-def test_one_class_bootstrap_is_explained():
-    """Project rule (errors name the field and say what to do): with between-subject labels
-    and two participants, some participant bootstrap holds one class only, which
-    LogisticRegression cannot fit (scikit-learn 1.9.1 raises); the error must say so."""
+def test_one_class_bootstrap_is_drawn_again_and_explained_when_it_stays(monkeypatch):
+    """With between-subject labels and two participants, some participant bootstraps hold
+    one class only, which LogisticRegression cannot fit (scikit-learn 1.9.1 raises): such a
+    draw is drawn again from the member's own seed, so every member is fitted on both classes
+    (this used to fail a whole run, e.g. in a permutation test's shuffled labels). Draws that
+    fit are never redrawn: a tree, which fits one class, keeps the plain draws. Without
+    redraws the error names the field and says what to do (project rule)."""
+    from cairn_science.learning import ensembles
+
     X, y, groups = participant_table(2, 2, between=True)
+    bag = GroupBaggingClassifier(LogisticRegression(), n_estimators=10,
+                                 random_state=0).fit(X, y, groups=groups)
+    assert all(np.unique(y[rows]).size == 2 for rows in bag.draws_)
+    tree = GroupBaggingClassifier(DecisionTreeClassifier(), n_estimators=10,
+                                  random_state=0).fit(X, y, groups=groups)
+    units = np.unique(groups)
+    for seed, rows in zip(tree.seeds_, tree.draws_, strict=True):
+        picked = np.random.RandomState(seed).randint(0, units.size, units.size)
+        assert rows.tolist() == np.concatenate(
+            [np.flatnonzero(groups == units[u]) for u in picked]).tolist()
+    assert any(np.unique(y[rows]).size == 1 for rows in tree.draws_)
+    monkeypatch.setattr(ensembles, "ONE_CLASS_REDRAWS", 0)
     with pytest.raises(ValueError, match="sample_by: member .* one class only"):
         GroupBaggingClassifier(LogisticRegression(), n_estimators=10,
                                random_state=0).fit(X, y, groups=groups)
