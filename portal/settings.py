@@ -243,6 +243,8 @@ else:
     # The folders are made when Celery first reads its configuration (portal.celery).
     BROKER_DIR = VAR_DIR / "broker"
     CELERY_BROKER_URL = "filesystem://"
+    # kombu's filesystem transport with whole-message writes (portal/embedded/broker.py).
+    CELERY_BROKER_TRANSPORT = "portal.embedded.broker:Transport"
     CELERY_BROKER_TRANSPORT_OPTIONS = {
         "data_folder_in": str(BROKER_DIR / "queue"),
         "data_folder_out": str(BROKER_DIR / "queue"),
