@@ -266,6 +266,46 @@ def test_data_manager_uploads_through_the_form_and_watches_it_accepted(browser, 
     page.context.close()
 
 
+def test_a_snapshot_that_would_remove_data_waits_for_a_confirmation(browser, portal,
+                                                                     tmp_path):
+    """A data manager sends the site's dataset as a whole-dataset snapshot without its last
+    participant: the page shows, without a reload, that the upload would remove that person
+    and their files and asks; cancelling ends the upload rejected and keeps the version."""
+    root = portal["bids"]
+    leaving = sorted(p.name for p in root.glob("sub-*"))[-1]
+    archive = tmp_path / "without-one.zip"
+    with zipfile.ZipFile(archive, "w") as bundle:
+        for path in sorted(root.rglob("*")):
+            relative = path.relative_to(root).as_posix()
+            if not path.is_file() or relative.split("/")[0] == leaving:
+                continue
+            if relative == "participants.tsv":
+                rows = path.read_text().splitlines()
+                bundle.writestr(relative, "\n".join(
+                    r for r in rows if not r.startswith(leaving + "\t")) + "\n")
+            else:
+                bundle.write(path, relative)
+    page = sign_in(browser, portal, dm(portal))
+    page.goto(f"/sites/{portal['sites'][0]}/")
+    page.get_by_role("link", name="Send a dataset").click()
+    page.get_by_label("One archive (.zip, .tar or .tar.gz)").set_input_files(str(archive))
+    page.get_by_label("Replace the whole dataset", exact=False).check()
+    page.get_by_role("button", name="Send").click()
+    page.wait_for_url("**/data/uploads/*/", timeout=120_000)
+    page.evaluate("window.cairnNoReload = true")
+    removals = page.locator("[data-upload-removals]")
+    removals.wait_for(timeout=SETTLE_S * 1000)
+    assert page.evaluate("window.cairnNoReload === true")
+    text = removals.inner_text()
+    assert leaving in text and f"{leaving}/" in text, text
+    shoot(page, "upload-held-removals")
+    no_serious_findings(page, "held upload")
+    page.locator("[data-cancel-removals]").click()
+    page.locator('[data-upload-state="rejected"]').wait_for(timeout=30_000)
+    assert page.locator("[data-upload-removals]").count() == 0
+    page.context.close()
+
+
 def test_study_lead_reads_the_overview_and_a_recordings_checks(browser, portal):
     page = sign_in(browser, portal, "study_lead")
     page.goto(f"/studies/{STUDY}/")
