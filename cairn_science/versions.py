@@ -10,6 +10,6 @@ QC_CODE_VERSION = "qc-2"
 #: Feature extraction (:mod:`cairn_science.features`).
 FEATURES_CODE_VERSION = "features-1"
 #: Training and evaluation (:mod:`cairn_science.learning`).
-LEARNING_CODE_VERSION = "learning-3"
+LEARNING_CODE_VERSION = "learning-4"
 
 __all__ = ["FEATURES_CODE_VERSION", "LEARNING_CODE_VERSION", "QC_CODE_VERSION"]

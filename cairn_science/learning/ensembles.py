@@ -33,7 +33,7 @@ from .validation import inner_splits
 
 MAX_INT = np.iinfo(np.int32).max
 SAMPLE_BY = ("participant", "window")
-#: How often a bootstrap draw holding one class that a member cannot fit is drawn again.
+#: How often a bootstrap draw holding one class only is drawn again.
 ONE_CLASS_REDRAWS = 100
 VOTING = ("soft", "hard")
 STACK_METHODS = ("auto", "predict_proba", "decision_function", "predict")
@@ -173,28 +173,25 @@ class GroupBaggingClassifier(ClassifierMixin, BaseEstimator):
             draw_rng = np.random.RandomState(seed)
             if self.sample_by == "window":
                 sample_without_replacement(X.shape[1], X.shape[1], random_state=draw_rng)
-            for attempt in range(ONE_CLASS_REDRAWS + 1):
+            n_classes = self.classes_.size
+            for _ in range(ONE_CLASS_REDRAWS + 1):
                 if self.sample_by == "window":
                     rows = draw_rng.randint(0, n_rows, n_rows)
                 else:
                     picked = draw_rng.randint(0, units.size, units.size)
                     rows = np.concatenate([rows_of_unit[u] for u in picked])
-                try:
-                    member.fit(X[rows], y_code[rows],
-                               **_group_kwargs(member, None if groups is None else groups[rows]))
+                # A member fitted on one class only votes for it whatever it sees (and some
+                # learners fit it but cannot give probabilities): such a draw is drawn again
+                # from the same seed's stream. Draws holding two classes or more are kept.
+                if n_classes < 2 or np.unique(y_code[rows]).size > 1:
                     break
-                except ValueError as exc:
-                    if np.unique(y_code[rows]).size > 1:
-                        raise
-                    # A draw holding one class that the member cannot fit is drawn again from
-                    # the same seed's stream (a draw it can fit is never redrawn, so results
-                    # where no such draw happens are unchanged).
-                    if attempt == ONE_CLASS_REDRAWS:
-                        raise ValueError(
-                            f"sample_by: member {index}'s bootstrap held one class only "
-                            f"({self.classes_[y_code[rows[0]]]!r}) in {attempt + 1} draws, "
-                            f"which {type(member).__name__} cannot fit; give more participants "
-                            "per class or use sample_by='window'") from exc
+            else:
+                raise ValueError(
+                    f"sample_by: member {index}'s bootstrap held one class only "
+                    f"({self.classes_[y_code[rows[0]]]!r}) in {ONE_CLASS_REDRAWS + 1} draws; give "
+                    "more participants per class or use sample_by='window'")
+            member.fit(X[rows], y_code[rows],
+                       **_group_kwargs(member, None if groups is None else groups[rows]))
             self.members_.append(member)
             self.draws_.append(rows)
         return self

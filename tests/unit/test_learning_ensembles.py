@@ -395,25 +395,31 @@ def test_nested_params_and_pipeline_groups(wine):
 
 def test_one_class_bootstrap_is_drawn_again_and_explained_when_it_stays(monkeypatch):
     """With between-subject labels and two participants, some participant bootstraps hold
-    one class only, which LogisticRegression cannot fit (scikit-learn 1.9.1 raises): such a
-    draw is drawn again from the member's own seed, so every member is fitted on both classes
-    (this used to fail a whole run, e.g. in a permutation test's shuffled labels). Draws that
-    fit are never redrawn: a tree, which fits one class, keeps the plain draws. Without
-    redraws the error names the field and says what to do (project rule)."""
+    one class only: LogisticRegression cannot fit such a draw (scikit-learn 1.9.1 raises),
+    LDA fits it but cannot give probabilities, a tree would only ever vote for that class.
+    Such a draw is drawn again from the member's own seed, so every member sees both classes
+    (one-class draws used to fail whole runs, e.g. in a permutation test's shuffled labels);
+    a draw holding both classes is the plain draw of its seed. Without redraws the error
+    names the field and says what to do (project rule)."""
     from cairn_science.learning import ensembles
 
     X, y, groups = participant_table(2, 2, between=True)
-    bag = GroupBaggingClassifier(LogisticRegression(), n_estimators=10,
-                                 random_state=0).fit(X, y, groups=groups)
-    assert all(np.unique(y[rows]).size == 2 for rows in bag.draws_)
-    tree = GroupBaggingClassifier(DecisionTreeClassifier(), n_estimators=10,
-                                  random_state=0).fit(X, y, groups=groups)
     units = np.unique(groups)
-    for seed, rows in zip(tree.seeds_, tree.draws_, strict=True):
-        picked = np.random.RandomState(seed).randint(0, units.size, units.size)
-        assert rows.tolist() == np.concatenate(
-            [np.flatnonzero(groups == units[u]) for u in picked]).tolist()
-    assert any(np.unique(y[rows]).size == 1 for rows in tree.draws_)
+    plain_one_class = 0
+    for learner in (LogisticRegression(), LinearDiscriminantAnalysis(),
+                    DecisionTreeClassifier()):
+        bag = GroupBaggingClassifier(learner, n_estimators=10, random_state=0).fit(
+            X, y, groups=groups)
+        assert all(np.unique(y[rows]).size == 2 for rows in bag.draws_)
+        assert bag.predict_proba(X).shape == (len(y), 2)
+        for seed, rows in zip(bag.seeds_, bag.draws_, strict=True):
+            picked = np.random.RandomState(seed).randint(0, units.size, units.size)
+            plain = np.concatenate([np.flatnonzero(groups == units[u]) for u in picked])
+            if np.unique(y[plain]).size == 2:
+                assert rows.tolist() == plain.tolist()
+            else:
+                plain_one_class += 1
+    assert plain_one_class > 0  # the case happened
     monkeypatch.setattr(ensembles, "ONE_CLASS_REDRAWS", 0)
     with pytest.raises(ValueError, match="sample_by: member .* one class only"):
         GroupBaggingClassifier(LogisticRegression(), n_estimators=10,
