@@ -76,7 +76,9 @@ def test_upload_validated_by_one_worker_is_checked_by_another(shared_store, star
     second_env = own_folders(shared_store, tmp_path / "machine-b")
 
     upload = submit_path(source, site=site, study=study, user=manager)
-    first = start_worker(first_env, name="a")
+    # The first takes only the intake queue: the accepted version asks for its checks at once,
+    # and those must wait for the second worker (a worker serving every queue took some).
+    first = start_worker(first_env, name="a", queues="intake")
     try:
         wait_for(lambda: Upload.objects.get(pk=upload.pk).state in FINAL_UPLOAD_STATES,
                  300, "the first worker to validate the upload")
