@@ -325,9 +325,11 @@ def site_evaluation(spec, data, model, rows):
     try:
         folds = folds_for(spec, site_data)
     except (DataError, validation.SchemeError) as exc:
+        scheme = spec.validation["scheme"]
         return {"evaluation": "none",
-                "no_evaluation": f"{spec.validation['scheme']} cannot be run on this site's "
-                                 f"data alone ({exc})"}
+                "no_evaluation": "validation by "
+                                 f"{validation.SCHEME_WORDS.get(scheme, scheme)} cannot be run "
+                                 f"on this site's data alone ({exc})"}
     result = evaluate(spec, site_data, models=[model], folds=folds)[model.name]
     return {"evaluation": "site_only", **_evaluation(result),
             "folds": [{"fold": f.index, "repeat": f.repeat,

@@ -134,7 +134,8 @@ def test_a_site_too_small_for_the_scheme_says_it_has_no_evaluation(client, featu
     assert "needs at least 4 participants" in release.scores["no_evaluation"]
     assert "per_fold" not in release.scores and "pooled_model" in release.scores
     card = _card(release)
-    assert "No evaluation of its own: grouped_kfold cannot be run on this site's data" in card
+    assert ("No evaluation of its own: validation by k folds grouped by participant cannot "
+            "be run on this site's data") in card
     assert "The scores below are the pooled model's, not this model's" in card
     page = _approve_and_read(client, release, "saltmarsh")
     assert "No evaluation of its own" in page and "Nothing on this page measures this" in page
