@@ -27,6 +27,7 @@ from portal.datasets.access import (
     visible_upload,
     visible_version,
 )
+from portal.datasets.downloads import version_zip
 from portal.datasets.models import DatasetVersion, UploadState
 from portal.datasets.services import (
     UploadError,
@@ -36,9 +37,9 @@ from portal.datasets.services import (
     missing_ranges,
     removal_words,
     start_chunked,
+    upload_job,
     write_chunk,
 )
-from portal.datasets.views import download_version, upload_job
 
 
 def _error(exc, status=400):
@@ -259,4 +260,4 @@ def version(request, version_id):
 @require_GET
 def version_download(request, version_id):
     """The whole version as a zip: the web download itself (same rules, same audit event)."""
-    return with_notice(download_version(request, version_id))
+    return with_notice(version_zip(request, version_id))

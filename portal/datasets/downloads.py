@@ -1,8 +1,14 @@
-"""Streaming a whole dataset version as a zip, without building it in memory or on disk."""
+"""Streaming a whole dataset version as a zip, without building it in memory or on disk; the
+one download of a version that the web page and the API both answer with."""
 
 import zipfile
 
+from django.http import StreamingHttpResponse
+
+from portal.accounts.permissions import Action, require
+from portal.audit.events import record
 from portal.datasets import blobs
+from portal.datasets.access import visible_version
 
 ZIP64_FROM_BYTES = 2**31
 
@@ -45,3 +51,20 @@ def stream_version_zip(files, *, folder):
                     yield pipe.take()
             yield pipe.take()
     yield pipe.take()
+
+
+def version_zip(request, version_id):
+    """The version as a zip for the requesting person or token: visible by the version's
+    (site, study), download allowed there, recorded as a download event."""
+    version = visible_version(request.user, version_id)
+    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
+    rows = list(version.files.values_list("path", "sha256", "bytes"))
+    folder = f"{version.site.slug}-v{version.number}"
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=version.site, study=version.study, target=version,
+           summary=f"downloaded all {len(rows)} files of {version}",
+           outputs=[{"dataset_version": version.pk, "manifest_sha256": version.manifest_sha256}])
+    response = StreamingHttpResponse(stream_version_zip(rows, folder=folder),
+                                     content_type="application/zip")
+    response["Content-Disposition"] = f'attachment; filename="{folder}.zip"'
+    return response

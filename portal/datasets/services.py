@@ -25,6 +25,7 @@ from portal.accounts.permissions import Action, require
 from portal.audit.events import record
 from portal.datasets.blobs import FULL_ERRNOS
 from portal.datasets.models import DatasetVersion, Upload, UploadMode, UploadState
+from portal.jobs.models import Job
 from portal.jobs.services import enqueue
 
 CHUNK_BYTES = 1024 * 1024
@@ -737,3 +738,8 @@ def warning_report(warnings, *, examples=5):
             "more_paths": max(0, len(paths) - examples), "items": items,
         })
     return out, len(warnings) - len(shown)
+
+
+def upload_job(upload):
+    """The validation job of ``upload`` (None before it is queued)."""
+    return Job.objects.filter(target_type="datasets.upload", target_id=str(upload.pk)).first()

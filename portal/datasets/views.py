@@ -13,7 +13,6 @@ from django.http import (
     Http404,
     HttpResponse,
     JsonResponse,
-    StreamingHttpResponse,
 )
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
@@ -30,7 +29,7 @@ from portal.datasets.access import (
     visible_upload,
     visible_version,
 )
-from portal.datasets.downloads import stream_version_zip
+from portal.datasets.downloads import version_zip
 from portal.datasets.forms import UploadForm
 from portal.datasets.models import DatasetVersion, Upload, UploadState, VersionFile
 from portal.datasets.services import (
@@ -43,15 +42,11 @@ from portal.datasets.services import (
     restore_version,
     safe_relative_path,
     submit_staged,
+    upload_job,
     warning_report,
 )
 from portal.datasets.uploadhandler import StagingUploadHandler, csrf_refusal
-from portal.jobs.models import Job
 from portal.spreadsheet import safe_row
-
-
-def upload_job(upload):
-    return Job.objects.filter(target_type="datasets.upload", target_id=str(upload.pk)).first()
 
 
 @access("checked")
@@ -310,15 +305,4 @@ def download_file(request, version_id, file_id):
 
 @access("checked")
 def download_version(request, version_id):
-    version = visible_version(request.user, version_id)
-    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
-    rows = list(version.files.values_list("path", "sha256", "bytes"))
-    folder = f"{version.site.slug}-v{version.number}"
-    record("download", actor=request.user, token=getattr(request, "api_token", None),
-           site=version.site, study=version.study, target=version,
-           summary=f"downloaded all {len(rows)} files of {version}",
-           outputs=[{"dataset_version": version.pk, "manifest_sha256": version.manifest_sha256}])
-    response = StreamingHttpResponse(stream_version_zip(rows, folder=folder),
-                                     content_type="application/zip")
-    response["Content-Disposition"] = f'attachment; filename="{folder}.zip"'
-    return response
+    return version_zip(request, version_id)

@@ -18,8 +18,8 @@ from portal.api_spec import (
     with_notice,
 )
 from portal.features.access import may_download, may_see, set_sites, visible_set
+from portal.features.downloads import feature_set_file
 from portal.features.models import FeatureSet, FeatureSetState
-from portal.features.views import download
 
 STATES = tuple(FeatureSetState.values)
 
@@ -81,4 +81,4 @@ def feature_set(request, set_id):
 @require_GET
 def feature_set_download(request, set_id):
     """The table as Parquet: the web download itself (same rules, same audit event)."""
-    return with_notice(download(request, set_id, fmt="parquet"))
+    return with_notice(feature_set_file(request, set_id, "parquet"))

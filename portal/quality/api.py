@@ -23,9 +23,9 @@ from portal.quality.access import (
     visible_qc_run,
     visible_round,
 )
+from portal.quality.derivatives import derivative_zip
 from portal.quality.models import QCRound, Verdict
 from portal.quality.services import runs_query, shown_verdict
-from portal.quality.views import download_derivative
 
 VERDICTS = tuple(Verdict.values)
 
@@ -133,5 +133,5 @@ def result_detail(request, run_id):
 @require_GET
 def derivative(request, round_id):
     """The round as a BIDS derivative zip: the web download itself (same rules and event)."""
-    return with_notice(download_derivative(request, round_id))
+    return with_notice(derivative_zip(request, round_id))
 

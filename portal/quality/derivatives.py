@@ -3,9 +3,16 @@ every metric and threshold in a JSON file beside it."""
 
 import csv
 import json
+import tempfile
+import zipfile
 from pathlib import Path, PurePosixPath
 
+from django.http import FileResponse
+
+from portal.accounts.permissions import Action, require
+from portal.audit.events import record
 from portal.datasets import blobs
+from portal.quality.access import visible_round
 from portal.quality.services import effective_channels, latest_overrides, runs_of
 from portal.spreadsheet import safe_cell
 
@@ -89,3 +96,26 @@ def write_derivative(qc_round, root):
         }, indent=1, sort_keys=True) + "\n")
         written += 1
     return written
+
+
+def derivative_zip(request, round_id):
+    """The round's BIDS derivative as a zip for the requesting person or token (the web page's
+    and the API's one download): visible by the version's (site, study), download allowed
+    there, recorded as a download event."""
+    qc_round = visible_round(request.user, round_id)
+    version = qc_round.version
+    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
+    folder = f"{version.site.slug}-v{version.number}-qc{qc_round.pk}"
+    spool = tempfile.TemporaryFile()
+    with tempfile.TemporaryDirectory(prefix="cairn-qc-export-") as tmp:
+        root = Path(tmp) / folder
+        write_derivative(qc_round, root)
+        with zipfile.ZipFile(spool, "w", compression=zipfile.ZIP_DEFLATED) as archive:
+            for path in sorted(root.rglob("*")):
+                if path.is_file():
+                    archive.write(path, f"{folder}/{path.relative_to(root).as_posix()}")
+    spool.seek(0)
+    record("download", actor=request.user, token=getattr(request, "api_token", None),
+           site=version.site, study=version.study, target=qc_round,
+           summary=f"downloaded the quality derivative of {version}")
+    return FileResponse(spool, as_attachment=True, filename=f"{folder}.zip")

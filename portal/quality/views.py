@@ -1,16 +1,12 @@
 """Quality pages: a version's table, a recording's checks, overrides, plots and exports."""
 
-import tempfile
-import zipfile
-from pathlib import Path
 
 from django.contrib import messages
-from django.http import FileResponse, Http404, HttpResponse, HttpResponseBadRequest
+from django.http import Http404, HttpResponse, HttpResponseBadRequest
 from django.shortcuts import redirect, render
 from django.views.decorators.http import require_POST
 
 from portal.accounts.permissions import Action, access, require
-from portal.audit.events import record
 from portal.datasets.access import visible_version
 from portal.quality import plots, viewer
 from portal.quality.access import (
@@ -19,7 +15,7 @@ from portal.quality.access import (
     visible_qc_run,
     visible_round,
 )
-from portal.quality.derivatives import write_derivative
+from portal.quality.derivatives import derivative_zip
 from portal.quality.forms import OverrideForm, RerunForm
 from portal.quality.models import Verdict
 from portal.quality.services import (
@@ -244,21 +240,5 @@ def plot(request, run_id, kind):
 
 @access("checked")
 def download_derivative(request, round_id):
-    qc_round = visible_round(request.user, round_id)
-    version = qc_round.version
-    require(request.user, Action.DOWNLOAD, site=version.site, study=version.study)
-    folder = f"{version.site.slug}-v{version.number}-qc{qc_round.pk}"
-    spool = tempfile.TemporaryFile()
-    with tempfile.TemporaryDirectory(prefix="cairn-qc-export-") as tmp:
-        root = Path(tmp) / folder
-        write_derivative(qc_round, root)
-        with zipfile.ZipFile(spool, "w", compression=zipfile.ZIP_DEFLATED) as archive:
-            for path in sorted(root.rglob("*")):
-                if path.is_file():
-                    archive.write(path, f"{folder}/{path.relative_to(root).as_posix()}")
-    spool.seek(0)
-    record("download", actor=request.user, token=getattr(request, "api_token", None),
-           site=version.site, study=version.study, target=qc_round,
-           summary=f"downloaded the quality derivative of {version}")
-    return FileResponse(spool, as_attachment=True, filename=f"{folder}.zip")
+    return derivative_zip(request, round_id)
 

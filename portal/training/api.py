@@ -23,9 +23,9 @@ from portal.api_spec import (
 from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
 from portal.training.access import release_sites, visible_run
+from portal.training.downloads import release_file_response
 from portal.training.models import ModelRelease, ReleaseState, RunState, TrainingRun
 from portal.training.services import TrainingRequestError, run_report, start_run
-from portal.training.views import release_file
 
 
 @access("checked")
@@ -207,4 +207,4 @@ def release_download(request, release_id, part):
             f"{getattr(release, 'withdrawal_reason', '') or 'no reason given'}; its files are "
             "no longer given out. Ask the study lead which release replaces it",
             status=410, code="withdrawn")
-    return with_notice(release_file(request, release_id, part, site_slug=site.slug))
+    return with_notice(release_file_response(request, release_id, part, site.slug))

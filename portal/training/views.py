@@ -6,30 +6,26 @@ import json
 from django import forms as django_forms
 from django.contrib import messages
 from django.core.exceptions import PermissionDenied
-from django.http import FileResponse, Http404, HttpResponse
+from django.http import Http404, HttpResponse
 from django.shortcuts import get_object_or_404, redirect, render
 from django.urls import reverse
 from django.views.decorators.http import require_http_methods, require_POST
 
 from portal.accounts.permissions import (
-    Action,
     access,
     get_visible_site,
     get_visible_study,
     is_lead,
-    require,
 )
-from portal.audit.events import record
 from portal.datasets import blobs
 from portal.features.access import may_run_on, may_see
 from portal.features.models import FeatureSet
 from portal.training import plots
 from portal.training.access import (
-    refuse_withdrawn,
-    release_for_site,
     site_may_use,
     visible_run,
 )
+from portal.training.downloads import release_file_response
 from portal.training.forms import TrainingForm
 from portal.training.models import ModelRelease, ReleaseState
 from portal.training.services import (
@@ -42,13 +38,6 @@ from portal.training.services import (
     status_of,
     withdraw,
 )
-
-#: part -> (file name after "release-N", content type, field holding the blob's sha256);
-#: "bundle" is the one archive a site downloads (the three files and a requirements list).
-RELEASE_PARTS = {"bundle": (".zip", "application/zip", "bundle_sha256"),
-                 "model": ("-model.skops", "application/octet-stream", "model_sha256"),
-                 "card": ("-model-card.md", "text/markdown", "card_sha256"),
-                 "spec": ("-features.json", "application/json", "spec_sha256")}
 
 
 def _form(user, study, data=None):
@@ -315,26 +304,7 @@ def site_releases(request, site_slug):
 
 @access("checked")
 def release_file(request, release_id, part, site_slug):
-    site = get_visible_site(request.user, site_slug)
-    release = release_for_site(request.user, release_id, site)
-    if part not in RELEASE_PARTS:
-        raise Http404("no such release file")
-    require(request.user, Action.DOWNLOAD, site=site, study=release.run.study)
-    refused = refuse_withdrawn(request, release, f"release-{release.pk}"
-                               f"{RELEASE_PARTS[part][0]}")
-    if refused is not None:
-        return refused
-    suffix, content_type, field = RELEASE_PARTS[part]
-    filename = f"release-{release.pk}{suffix}"
-    sha = getattr(release, field)
-    if not sha:
-        raise Http404("this release has no archive; download its files one by one")
-    record("download", actor=request.user, token=getattr(request, "api_token", None),
-           site=site, study=release.run.study, target=release,
-           summary=f"downloaded {filename} of release {release.pk} for {site.slug}",
-           outputs=[{"release": release.pk, "file": filename, "sha256": sha}])
-    return FileResponse(blobs.open_blob(sha), as_attachment=True, filename=filename,
-                        content_type=content_type)
+    return release_file_response(request, release_id, part, site_slug)
 
 
 @access("checked")

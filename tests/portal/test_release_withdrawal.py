@@ -9,8 +9,8 @@ from django.urls import reverse
 
 from portal.accounts.models import Study
 from portal.audit.models import Event
+from portal.training.downloads import RELEASE_PARTS
 from portal.training.models import ModelRelease
-from portal.training.views import RELEASE_PARTS
 from tests.portal import objects
 
 pytestmark = pytest.mark.django_db
