@@ -65,14 +65,10 @@ CHECK_VALUES = {
     "bridging": (lambda rng, n: rng.uniform(0.2, 1.8, n), (0.001, 0.009)),
     "predictability": (lambda rng, n: rng.uniform(0.0, 0.25, n), (0.45, 0.9)),
 }
-# The QCSettings field each check's value is compared with (as run_qc passes them).
-THRESHOLD_FIELDS = {
-    "dropout": "dropout_share_max", "deviation": "deviation_z_max",
-    "amplitude_factor": "deviation_factor_max", "high_frequency": "hf_z_max",
-    "correlation": "correlation_bad_window_share", "jumps": "jump_rate_max_per_min",
-    "mains": "mains_excess_db", "bridging": "bridge_variance_ratio_max",
-    "predictability": "predict_bad_window_share",
-}
+# The QCSettings field each check's value is compared with is the checks' own table
+# (cairn_science.qc.checks.THRESHOLD_FIELDS) but for mains, whose invented values are the
+# excess over the median channel, not the absolute ratio bound the real check falls back to.
+MAINS_THRESHOLD_FIELD = "mains_excess_db"
 OVERRIDE_REASONS = {
     "good": ("looked at the raw trace: the signal is fine, the flag came from one movement",
              "impedance was checked after the session and was low"),
@@ -146,7 +142,7 @@ def _qc_result(rng, plan, recording, settings, code_version, target):
     """A quality result as the quality job stores it (``QCResult.as_dict()`` and the sensor
     positions), its numbers drawn for ``target``: channel statuses, reasons and the verdict
     come from the checks' own code (``cairn_science.qc.run`` and ``.verdict``)."""
-    from cairn_science.qc.checks import ChannelCheck
+    from cairn_science.qc.checks import THRESHOLD_FIELDS, ChannelCheck
     from cairn_science.qc.result import PowerSpectrum, QCResult
     from cairn_science.qc.run import CHECK_ORDER, _channel_results
     from cairn_science.qc.segments import FRONTAL, SEGMENT_WORDS, Blinks, Segment
@@ -177,7 +173,8 @@ def _qc_result(rng, plan, recording, settings, code_version, target):
             if reason == check:
                 values[i] = rng.uniform(*flagged_range)
                 flagged[i] = True
-        threshold = float(getattr(settings, THRESHOLD_FIELDS[check]))
+        field = MAINS_THRESHOLD_FIELD if check == "mains" else THRESHOLD_FIELDS[check]
+        threshold = float(getattr(settings, field))
         outcomes[check] = ChannelCheck(
             check, values, threshold, flagged,
             partners=[names[(i + 1) % n] for i in range(n)] if check == "bridging" else [],
