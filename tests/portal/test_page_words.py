@@ -16,11 +16,10 @@ from django.urls import reverse
 
 from portal.datasets.models import DatasetVersion, Upload
 from portal.demo.bulk import make_study
-from portal.features.models import FeatureSet
 from portal.jobs.models import Job
-from portal.quality.models import QCRound
 from portal.training.models import TrainingRun
 from tests.portal import objects
+from tests.portal.test_page_queries import pages as main_pages
 
 pytestmark = pytest.mark.django_db
 
@@ -63,30 +62,23 @@ def visible_text(page):
 
 
 def pages(study):
+    """The page-query test's main pages (but the audit trail and lineage, whose verbs and
+    kinds are shown as recorded) and the other pages people read."""
     site = study.sites.order_by("slug").first()
     version = DatasetVersion.objects.filter(site=site, study=study).order_by("-number").first()
-    qc_round = QCRound.objects.filter(version=version).order_by("-id").first()
-    recording = version.recordings.order_by("path").first()
-    feature_set = FeatureSet.objects.filter(study=study).order_by("id").first()
     run = TrainingRun.objects.filter(study=study).order_by("id").first()
     job = Job.objects.filter(study=study).order_by("id").first()
     job_id = job.pk if job else objects.job_about("training.run", run, site=site, study=study)
-    urls = {
-        "home": reverse("dashboard:home"),
-        "study overview": reverse("dashboard:study", args=[study.slug]),
-        "site page": reverse("dashboard:site", args=[site.slug]),
+    urls = {name: url for name, url in main_pages(study).items()
+            if name not in ("audit trail", "lineage")}
+    urls.update({
         "dataset version": reverse("datasets:version", args=[version.pk]),
-        "quality round": reverse("quality:round", args=[qc_round.pk]),
-        "recording quality": reverse("quality:recording", args=[qc_round.pk, recording.pk]),
         "feature sets": reverse("features:study", args=[study.slug]),
-        "feature set": reverse("features:detail", args=[feature_set.pk]),
         "training runs": reverse("training:study", args=[study.slug]),
-        "training run": reverse("training:detail", args=[run.pk]),
         "compare runs": reverse("training:compare", args=[study.slug]),
-        "site releases": reverse("training:releases", args=[site.slug]),
         "protocol": reverse("studies:protocol", args=[study.slug]),
         "job": reverse("jobs:detail", args=[job_id]),
-    }
+    })
     for upload in Upload.objects.filter(study=study).order_by("pk")[:3]:
         urls[f"upload {upload.pk}"] = reverse("datasets:upload", args=[upload.pk])
     return urls
