@@ -7,13 +7,15 @@ Nothing is filtered unless a display filter is asked for; its name is written on
 with the display rate.
 """
 
-import hashlib
 import io
-import json
+import os
+import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+
+from cairn_science.canonical_json import canonical_sha256
 
 VIEW_VERSION = "1"
 MAX_SPAN_S = 60.0
@@ -244,7 +246,7 @@ def cache_key(sha256, params, channels, segments):
     marks = {"bad": sorted(n for n, c in (channels or {}).items() if c.get("status") == "bad"),
              "segments": [[s["onset_s"], s["duration_s"]] for s in segments]}
     payload = {"v": VIEW_VERSION, "sha256": sha256, **params.key(), "marks": marks}
-    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
+    return canonical_sha256(payload)
 
 
 def cached_png(key, render):
@@ -257,7 +259,7 @@ def cached_png(key, render):
     if path.exists():
         return path.read_bytes()
     png = render()
-    tmp = path.with_suffix(f".{id(png)}.tmp")
+    tmp = path.with_suffix(f".{os.getpid()}.{threading.get_ident()}.tmp")  # one per writer
     tmp.write_bytes(png)
     tmp.replace(path)
     return png
