@@ -12,6 +12,7 @@ from django.http import Http404, StreamingHttpResponse
 from django.shortcuts import render
 from django.utils.dateparse import parse_date
 
+from cairn_science.canonical_json import canonical_text
 from portal.accounts.permissions import access, visible_sites
 from portal.audit.access import visible_events
 from portal.audit.chain import read_anchors
@@ -35,7 +36,7 @@ def filtered(request):
     # (verbs of no known family included); "jobs" adds job bookkeeping to either; a verb
     # prefix searches every kind.
     if chosen["verb"]:
-        pass
+        events = events.filter(verb__startswith=chosen["verb"])
     elif chosen["kind"] == "all":
         if not chosen["jobs"]:
             events = events.exclude(kinds_q([JOBS]))
@@ -44,8 +45,6 @@ def filtered(request):
         if chosen["jobs"] and JOBS not in kinds:
             kinds.append(JOBS)
         events = events.filter(kinds_q(kinds))
-    if chosen["verb"]:
-        events = events.filter(verb__startswith=chosen["verb"])
     if chosen["site"]:
         events = events.filter(site__slug=chosen["site"])
     if chosen["actor"]:
@@ -80,10 +79,6 @@ def _after(events, cursor):
         raise Http404("that page of the audit trail does not exist; start from the newest") \
             from None
     return events.filter(Q(at__lt=at) | Q(at=at, id__lt=ident))
-
-
-def _json(value):
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
 
 
 def _items(values):
@@ -165,9 +160,10 @@ def export_csv(request):
                 event.verb, event.actor_snapshot.get("username", ""), event.actor_kind,
                 event.site.slug if event.site else "", event.study.slug if event.study else "",
                 f"{event.target_type}:{event.target_id}" if event.target_type else "",
-                event.summary, _json(event.inputs), _json(event.outputs), _json(event.params),
+                event.summary, canonical_text(event.inputs), canonical_text(event.outputs),
+                canonical_text(event.params),
                 commit, "" if modified is None else str(modified).lower(),
-                _json(event.code_version), link.seq if link else "",
+                canonical_text(event.code_version), link.seq if link else "",
                 link.hash if link else ""]))
             yield buffer.getvalue()
 
